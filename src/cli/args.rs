@@ -1,0 +1,147 @@
+//! The flags of every command, each with its help text.
+
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand};
+
+/// Fit regularized generalized linear models on Parquet data larger than memory.
+#[derive(Debug, Parser)]
+#[command(name = "outcore", version, about, long_about = None)]
+pub struct Cli {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// The commands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Fit a model on Parquet data and write the model file.
+    Fit(FitArgs),
+    /// Score Parquet data with a model and write the scores as Parquet.
+    Predict(PredictArgs),
+    /// Show a model file as a readable summary.
+    Inspect(InspectArgs),
+    /// Write the invented demo data set (a grocery-delivery order log).
+    Demo(DemoArgs),
+}
+
+/// Flags of `outcore fit`. Every flag can also be set in a `--config` TOML file under
+/// the same name with underscores (`max_passes = 50`); flags override the file.
+#[derive(Debug, Args, Default)]
+pub struct FitArgs {
+    /// Settings file (TOML) with the same keys as these flags; relative paths in it are
+    /// relative to the file.
+    #[arg(long, value_name = "RUN.toml")]
+    pub config: Option<PathBuf>,
+    /// Parquet files, directories of them, or glob patterns.
+    #[arg(long, num_args = 1.., value_name = "PATH")]
+    pub data: Vec<String>,
+    /// The column to predict.
+    #[arg(long, value_name = "COL")]
+    pub target: Option<String>,
+    /// A column of frequency weights (a row of weight 3 counts as three rows).
+    #[arg(long, value_name = "COL")]
+    pub weight: Option<String>,
+    /// Feature columns (default: every numeric or boolean column but target and weight).
+    #[arg(long, value_delimiter = ',', value_name = "COL,...")]
+    pub features: Option<Vec<String>>,
+    /// Loss family: logistic, squared, poisson or softmax (default logistic).
+    #[arg(long, value_name = "LOSS")]
+    pub loss: Option<String>,
+    /// Ridge strength: adds ridge/2 · ‖β‖² (intercept not penalized).
+    #[arg(long, value_name = "X")]
+    pub ridge: Option<f64>,
+    /// Lasso strength: adds lasso · ‖β‖₁ (fitted by OWL-QN; exact zeros).
+    #[arg(long, value_name = "X")]
+    pub lasso: Option<f64>,
+    /// Converged when max |gradient| ≤ tol · max(1, |objective|) (default 1e-6).
+    #[arg(long, value_name = "X")]
+    pub tol: Option<f64>,
+    /// Most full data passes, the statistics pass included.
+    #[arg(long, value_name = "N")]
+    pub max_passes: Option<u64>,
+    /// Wall-clock budget in seconds.
+    #[arg(long, value_name = "S")]
+    pub max_seconds: Option<f64>,
+    /// L-BFGS history pairs (default 10).
+    #[arg(long, value_name = "M")]
+    pub history: Option<usize>,
+    /// Threads for the data passes (default: all cores).
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
+    /// Shards the data are cut into (default: the thread count); results depend on the
+    /// shard count, never on the thread count.
+    #[arg(long, value_name = "N")]
+    pub shards: Option<usize>,
+    /// Rows per block of a pass (default 8192).
+    #[arg(long, value_name = "N")]
+    pub block_rows: Option<usize>,
+    /// Null feature values: error (default) or mean (impute the training mean and add an
+    /// indicator feature `COL.missing`).
+    #[arg(long, value_name = "POLICY")]
+    pub missing: Option<String>,
+    /// Skip (and count) rows whose target is null instead of refusing them.
+    #[arg(long)]
+    pub skip_missing_target: bool,
+    /// Fit and penalize on the raw scale instead of standardized features.
+    #[arg(long)]
+    pub no_standardize: bool,
+    /// Run directory for the log and settings (default: next to --out, `MODEL.run`).
+    #[arg(long, value_name = "DIR")]
+    pub run: Option<PathBuf>,
+    /// Where to write the model file.
+    #[arg(long, value_name = "MODEL.json")]
+    pub out: Option<PathBuf>,
+    /// Print one JSON summary object on stdout at the end (progress stays on stderr).
+    #[arg(long)]
+    pub json: bool,
+    /// Print no progress lines.
+    #[arg(long)]
+    pub quiet: bool,
+}
+
+/// Flags of `outcore predict`.
+#[derive(Debug, Args)]
+pub struct PredictArgs {
+    /// The model file.
+    #[arg(long, value_name = "MODEL.json")]
+    pub model: PathBuf,
+    /// Parquet files, directories of them, or glob patterns.
+    #[arg(long, required = true, num_args = 1.., value_name = "PATH")]
+    pub data: Vec<String>,
+    /// Where to write the scores (Parquet).
+    #[arg(long, value_name = "SCORES.parquet")]
+    pub out: PathBuf,
+    /// Columns of the input copied into the output beside the scores.
+    #[arg(long, value_delimiter = ',', value_name = "COL,...")]
+    pub keep: Vec<String>,
+}
+
+/// Flags of `outcore inspect`.
+#[derive(Debug, Args)]
+pub struct InspectArgs {
+    /// The model file.
+    #[arg(value_name = "MODEL.json")]
+    pub model: PathBuf,
+    /// How many coefficients to list, largest standardized magnitude first.
+    #[arg(long, default_value_t = 20, value_name = "N")]
+    pub top: usize,
+}
+
+/// Flags of `outcore demo`.
+#[derive(Debug, Args)]
+pub struct DemoArgs {
+    /// Directory to write the demo files into (created if missing).
+    #[arg(long, value_name = "DIR")]
+    pub out: PathBuf,
+    /// Rows (orders) to write.
+    #[arg(long, default_value_t = 100_000, value_name = "N")]
+    pub rows: u64,
+    /// Seed of the random stream.
+    #[arg(long, default_value_t = 7, value_name = "S")]
+    pub seed: u64,
+    /// Most rows in one file.
+    #[arg(long, default_value_t = 1_000_000, value_name = "N")]
+    pub rows_per_file: u64,
+}

@@ -1,0 +1,174 @@
+//! `--config RUN.toml`: the fit flags as a settings file, merged under the flags into
+//! one [`FitPlan`].
+
+use std::path::{Path, PathBuf};
+
+use serde::Deserialize;
+
+use outcore::features::{FeatureRequest, MissingPolicy};
+use outcore::fit::FitSettings;
+use outcore::objective::Loss;
+use outcore::{Error, Result};
+
+use super::args::FitArgs;
+
+/// The settings file: the same keys as the `fit` flags, with underscores.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct FitConfig {
+    data: Option<Vec<String>>,
+    target: Option<String>,
+    weight: Option<String>,
+    features: Option<Vec<String>>,
+    loss: Option<String>,
+    ridge: Option<f64>,
+    lasso: Option<f64>,
+    tol: Option<f64>,
+    max_passes: Option<u64>,
+    max_seconds: Option<f64>,
+    history: Option<usize>,
+    threads: Option<usize>,
+    shards: Option<usize>,
+    block_rows: Option<usize>,
+    missing: Option<String>,
+    skip_missing_target: Option<bool>,
+    standardize: Option<bool>,
+    run: Option<PathBuf>,
+    out: Option<PathBuf>,
+}
+
+/// A fit fully resolved from flags and settings file.
+#[derive(Debug, Clone)]
+pub struct FitPlan {
+    /// Data paths.
+    pub data: Vec<String>,
+    /// Settings of the fit.
+    pub settings: FitSettings,
+    /// Model file to write.
+    pub out: PathBuf,
+    /// Run directory.
+    pub run: PathBuf,
+}
+
+fn read_config(path: &Path) -> Result<FitConfig> {
+    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+    toml::from_str(&text).map_err(|e| {
+        let (line, col) = e.span().map(|s| line_col(&text, s.start)).unwrap_or((0, 0));
+        Error::usage(format!(
+            "the settings file {} is wrong at line {line}, column {col}: {}",
+            path.display(),
+            e.message()
+        ))
+    })
+}
+
+fn line_col(text: &str, offset: usize) -> (usize, usize) {
+    let before = &text[..offset.min(text.len())];
+    let line = before.matches('\n').count() + 1;
+    let col = before.len() - before.rfind('\n').map_or(0, |i| i + 1) + 1;
+    (line, col)
+}
+
+fn relative_to(base: &Path, p: &str) -> String {
+    let path = Path::new(p);
+    if path.is_absolute() {
+        p.to_string()
+    } else {
+        base.join(path).to_string_lossy().into_owned()
+    }
+}
+
+/// Resolves flags over the settings file into a plan.
+pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
+    let (config, base) = match &args.config {
+        Some(path) => {
+            let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
+            (read_config(path)?, base)
+        }
+        None => (FitConfig::default(), PathBuf::new()),
+    };
+    let data = if !args.data.is_empty() {
+        args.data.clone()
+    } else {
+        config
+            .data
+            .unwrap_or_default()
+            .iter()
+            .map(|p| relative_to(&base, p))
+            .collect()
+    };
+    if data.is_empty() {
+        return Err(Error::usage(
+            "no data given: pass --data PATH (or data = [...] in the settings file)",
+        ));
+    }
+    let target = args
+        .target
+        .clone()
+        .or(config.target)
+        .ok_or_else(|| Error::usage("no target given: pass --target COL"))?;
+    let out = match (&args.out, config.out) {
+        (Some(o), _) => o.clone(),
+        (None, Some(o)) => base.join(o),
+        (None, None) => return Err(Error::usage("no model path given: pass --out MODEL.json")),
+    };
+    let loss = Loss::parse(
+        args.loss
+            .as_deref()
+            .or(config.loss.as_deref())
+            .unwrap_or("logistic"),
+    )?;
+    let missing = MissingPolicy::parse(
+        args.missing
+            .as_deref()
+            .or(config.missing.as_deref())
+            .unwrap_or("error"),
+    )?;
+    let request = FeatureRequest {
+        target,
+        weight: args.weight.clone().or(config.weight),
+        features: args.features.clone().or(config.features),
+        loss,
+        missing,
+        skip_missing_target: args.skip_missing_target
+            || config.skip_missing_target.unwrap_or(false),
+        standardize: !args.no_standardize && config.standardize.unwrap_or(true),
+    };
+    let mut settings = FitSettings::new(request);
+    settings.ridge = args.ridge.or(config.ridge).unwrap_or(0.0);
+    settings.lasso = args.lasso.or(config.lasso).unwrap_or(0.0);
+    settings.tol = args.tol.or(config.tol).unwrap_or(settings.tol);
+    settings.max_passes = args.max_passes.or(config.max_passes);
+    settings.max_seconds = args.max_seconds.or(config.max_seconds);
+    settings.history = args.history.or(config.history).unwrap_or(settings.history);
+    settings.threads = args.threads.or(config.threads).unwrap_or(settings.threads);
+    settings.shards = args.shards.or(config.shards);
+    settings.block_rows = args
+        .block_rows
+        .or(config.block_rows)
+        .unwrap_or(settings.block_rows);
+    if settings.block_rows == 0 {
+        return Err(Error::usage("--block-rows must be at least 1"));
+    }
+    settings.validate()?;
+    let run = match (&args.run, config.run) {
+        (Some(r), _) => r.clone(),
+        (None, Some(r)) => base.join(r),
+        (None, None) => default_run_dir(&out),
+    };
+    Ok(FitPlan {
+        data,
+        settings,
+        out,
+        run,
+    })
+}
+
+/// `MODEL.run` beside `MODEL.json`.
+pub fn default_run_dir(out: &Path) -> PathBuf {
+    let stem = out
+        .file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "model".into());
+    out.with_file_name(format!("{stem}.run"))
+}

@@ -1,0 +1,838 @@
+//! The feature spec: which columns are features, target and weight; the statistics pass;
+//! standardization; the missing-value policy; and turning record batches into
+//! [`Block`]s that the kernels read.
+//!
+//! A [`Design`] is fixed once the statistics pass has run: it knows every feature's
+//! centre and scale and the target's classes, and it turns any batch of the same data
+//! into the same block, on every pass.
+
+pub mod stats;
+pub mod values;
+
+use std::collections::{BTreeSet, HashMap};
+
+use arrow::array::{Array, Float64Array};
+use serde::{Deserialize, Serialize};
+
+use crate::objective::Loss;
+use crate::pass::{self, PassPlan};
+use crate::source::{BatchAt, ColumnClass, Source};
+use crate::{Error, Result};
+use stats::Moments;
+use values::Place;
+
+/// What to do with a null feature value.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum MissingPolicy {
+    /// Refuse the data, naming the column, the count and the first row.
+    Error,
+    /// Put the training mean in its place and add an indicator feature.
+    Mean,
+}
+
+impl MissingPolicy {
+    /// Parses `error` or `mean`.
+    pub fn parse(name: &str) -> Result<MissingPolicy> {
+        match name {
+            "error" => Ok(MissingPolicy::Error),
+            "mean" => Ok(MissingPolicy::Mean),
+            other => Err(Error::usage(format!(
+                "unknown missing-value policy '{other}'; choose error or mean"
+            ))),
+        }
+    }
+}
+
+/// What the user asked for: columns and how to treat them.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FeatureRequest {
+    /// Target column.
+    pub target: String,
+    /// Weight column (frequency weights), if any.
+    pub weight: Option<String>,
+    /// Feature columns; `None` means every numeric or boolean column but target and weight.
+    pub features: Option<Vec<String>>,
+    /// Loss family (decides how the target is read).
+    pub loss: Loss,
+    /// Null feature values.
+    pub missing: MissingPolicy,
+    /// Skip rows whose target is null (counted) instead of refusing them.
+    pub skip_missing_target: bool,
+    /// Centre and scale numeric features by their weighted mean and standard deviation.
+    pub standardize: bool,
+}
+
+/// Suffix of the name of a missing-value indicator feature.
+pub const MISSING_SUFFIX: &str = ".missing";
+
+/// One column of the design matrix.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Feature {
+    /// Name in the model (the column name, or `column.missing` for an indicator).
+    pub name: String,
+    /// Source column.
+    pub column: String,
+    /// True for a missing-value indicator (1 where the column is null).
+    pub indicator: bool,
+    /// Weighted mean of the feature over the training rows.
+    pub mean: f64,
+    /// Weighted population standard deviation.
+    pub std: f64,
+    /// Value put in place of a null (the training mean of the non-null values).
+    pub impute: f64,
+    /// Subtracted before use (the mean when standardizing, else 0).
+    pub center: f64,
+    /// Divided by before use (the standard deviation when standardizing, else 1).
+    pub scale: f64,
+}
+
+/// What the statistics pass saw.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Summary {
+    /// Rows read.
+    pub rows: u64,
+    /// Rows skipped because the target was null.
+    pub skipped_target: u64,
+    /// Rows used whose weight is positive.
+    pub rows_weighted: u64,
+    /// Sum of the weights of the rows used.
+    pub weight_sum: f64,
+    /// Moments of each candidate feature column, in the order of the request.
+    pub columns: Vec<(String, Moments)>,
+    /// Moments of the target (numeric targets).
+    pub target: Moments,
+    /// Distinct class labels (softmax), in order.
+    pub classes: Vec<String>,
+    /// Weighted count per class (softmax) or of positives (logistic, one entry).
+    pub class_weights: Vec<f64>,
+}
+
+/// The fixed transformation from record batches to blocks.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Design {
+    /// Target column.
+    pub target: String,
+    /// Weight column.
+    pub weight: Option<String>,
+    /// Loss family.
+    pub loss: Loss,
+    /// Class labels (softmax), in class-index order.
+    pub classes: Vec<String>,
+    /// The features, in coefficient order.
+    pub features: Vec<Feature>,
+    /// Null feature values.
+    pub missing: MissingPolicy,
+    /// Skip rows with a null target.
+    pub skip_missing_target: bool,
+    /// Whether features were standardized.
+    pub standardize: bool,
+    class_index: HashMap<String, usize>,
+    /// Distinct source columns of the features, in order.
+    feature_columns: Vec<String>,
+}
+
+/// A block of rows ready for the kernels: features column by column, labels, weights.
+#[derive(Debug, Clone, Default)]
+pub struct Block {
+    /// Rows in the block.
+    pub rows: usize,
+    /// Feature values, column-major: feature `j` at `x[j * rows .. (j + 1) * rows]`,
+    /// already centred and scaled.
+    pub x: Vec<f64>,
+    /// Labels: 0/1, the value, the count, or the class index as `f64`.
+    pub y: Vec<f64>,
+    /// Weights (empty when there is no weight column: every weight is 1).
+    pub w: Vec<f64>,
+    /// File of the block.
+    pub file: usize,
+    /// Row number within the file of the block's first row.
+    pub first_row: u64,
+}
+
+impl Block {
+    /// Feature `j` of every row.
+    #[inline]
+    pub fn column(&self, j: usize) -> &[f64] {
+        &self.x[j * self.rows..(j + 1) * self.rows]
+    }
+
+    /// Weight of row `i`.
+    #[inline]
+    pub fn weight(&self, i: usize) -> f64 {
+        if self.w.is_empty() {
+            1.0
+        } else {
+            self.w[i]
+        }
+    }
+}
+
+/// Chooses the feature columns and checks every column's presence and type in every
+/// file. Returns the candidate feature column names.
+pub fn resolve_columns(source: &Source, request: &FeatureRequest) -> Result<Vec<String>> {
+    let mut needed: Vec<&str> = vec![request.target.as_str()];
+    if let Some(w) = &request.weight {
+        if w == &request.target {
+            return Err(Error::usage(format!(
+                "the weight column '{w}' is also the target; name another column with --weight"
+            )));
+        }
+        needed.push(w);
+    }
+    let features: Vec<String> = match &request.features {
+        Some(list) => {
+            let mut seen = BTreeSet::new();
+            for name in list {
+                if !seen.insert(name.as_str()) {
+                    return Err(Error::usage(format!(
+                        "the feature '{name}' is listed twice in --features"
+                    )));
+                }
+                if name == &request.target || Some(name) == request.weight.as_ref() {
+                    return Err(Error::usage(format!(
+                        "'{name}' is the target or the weight column and cannot also be a feature"
+                    )));
+                }
+            }
+            list.clone()
+        }
+        None => source
+            .schema()
+            .fields()
+            .iter()
+            .filter(|f| {
+                f.name() != &request.target
+                    && Some(f.name()) != request.weight.as_ref()
+                    && matches!(
+                        ColumnClass::of(f.data_type()),
+                        ColumnClass::Numeric | ColumnClass::Bool
+                    )
+            })
+            .map(|f| f.name().clone())
+            .collect(),
+    };
+    if features.is_empty() {
+        return Err(Error::usage(format!(
+            "{} has no numeric feature columns besides the target; name features with --features",
+            source.files()[0].path.display()
+        )));
+    }
+    needed.extend(features.iter().map(String::as_str));
+    source.require_columns(&needed)?;
+    let first = &source.files()[0];
+    for name in &features {
+        let class = source
+            .column_type(name)
+            .map(ColumnClass::of)
+            .unwrap_or(ColumnClass::Other);
+        if !matches!(class, ColumnClass::Numeric | ColumnClass::Bool) {
+            return Err(Error::usage(format!(
+                "the feature '{name}' of {} is a {} column; features must be numeric or boolean",
+                first.path.display(),
+                class.describe()
+            )));
+        }
+    }
+    if let Some(w) = &request.weight {
+        let class = source.column_type(w).map(ColumnClass::of);
+        if class != Some(ColumnClass::Numeric) {
+            return Err(Error::usage(format!(
+                "the weight column '{w}' of {} is not numeric",
+                first.path.display()
+            )));
+        }
+    }
+    let target_class = source
+        .column_type(&request.target)
+        .map(ColumnClass::of)
+        .unwrap_or(ColumnClass::Other);
+    let ok = match request.loss {
+        Loss::Logistic => matches!(target_class, ColumnClass::Numeric | ColumnClass::Bool),
+        Loss::Squared | Loss::Poisson => target_class == ColumnClass::Numeric,
+        Loss::Softmax => matches!(target_class, ColumnClass::Numeric | ColumnClass::Text),
+    };
+    if !ok {
+        return Err(Error::usage(format!(
+            "the target '{}' of {} is a {} column, which the {} loss cannot use",
+            request.target,
+            first.path.display(),
+            target_class.describe(),
+            request.loss.as_str()
+        )));
+    }
+    Ok(features)
+}
+
+/// The target of one block as read: values (or class labels) and nulls.
+enum TargetValues {
+    Numbers(Float64Array),
+    Labels(Vec<Option<String>>),
+}
+
+fn read_target(
+    request_loss: Loss,
+    target: &str,
+    at: &BatchAt,
+    place: Place<'_>,
+) -> Result<TargetValues> {
+    let array = at
+        .batch
+        .column_by_name(target)
+        .ok_or_else(|| Error::internal(format!("column '{target}' was not decoded")))?;
+    let is_text = matches!(ColumnClass::of(array.data_type()), ColumnClass::Text);
+    if request_loss == Loss::Softmax && is_text {
+        return Ok(TargetValues::Labels(values::as_strings(
+            array, target, place,
+        )?));
+    }
+    let numbers = values::as_f64(array, target, place)?;
+    values::check_finite(&numbers, target, place)?;
+    for (i, v) in numbers.values().iter().enumerate() {
+        if numbers.is_null(i) {
+            continue;
+        }
+        let bad = match request_loss {
+            Loss::Logistic => *v != 0.0 && *v != 1.0,
+            Loss::Poisson => *v < 0.0,
+            Loss::Softmax => v.fract() != 0.0,
+            Loss::Squared => false,
+        };
+        if bad {
+            let need = match request_loss {
+                Loss::Logistic => "logistic targets must be 0 or 1 (or booleans)",
+                Loss::Poisson => "poisson targets must be non-negative counts",
+                _ => "softmax targets must be whole numbers or strings naming the classes",
+            };
+            return Err(Error::data(format!(
+                "the target '{target}' is {v} at {}; {need}",
+                place.row(i)
+            )));
+        }
+    }
+    Ok(TargetValues::Numbers(numbers))
+}
+
+fn read_weights(weight: &str, at: &BatchAt, place: Place<'_>) -> Result<Float64Array> {
+    let array = at
+        .batch
+        .column_by_name(weight)
+        .ok_or_else(|| Error::internal(format!("column '{weight}' was not decoded")))?;
+    let w = values::as_f64(array, weight, place)?;
+    values::check_finite(&w, weight, place)?;
+    for (i, v) in w.values().iter().enumerate() {
+        if w.is_null(i) {
+            return Err(Error::data(format!(
+                "the weight column '{weight}' is null at {}; every row needs a weight",
+                place.row(i)
+            )));
+        }
+        if *v < 0.0 {
+            return Err(Error::data(format!(
+                "the weight column '{weight}' is negative ({v}) at {}; weights must be zero or more",
+                place.row(i)
+            )));
+        }
+    }
+    Ok(w)
+}
+
+/// Class label of a numeric softmax target value.
+fn numeric_label(v: f64) -> String {
+    format!("{}", v as i64)
+}
+
+/// Per-shard accumulator of the statistics pass.
+struct StatsAcc {
+    rows: u64,
+    skipped: u64,
+    rows_weighted: u64,
+    weight_sum: f64,
+    columns: Vec<Moments>,
+    target: Moments,
+    labels: BTreeSet<String>,
+    numeric_labels: BTreeSet<i64>,
+    class_weights: HashMap<String, f64>,
+    positives: f64,
+    first_null: Vec<Option<String>>,
+}
+
+/// The statistics pass: reads target, weight and every candidate feature once, checks
+/// every value, and returns the moments of each column.
+pub fn collect_stats(
+    source: &Source,
+    plan: &PassPlan,
+    request: &FeatureRequest,
+    features: &[String],
+) -> Result<Summary> {
+    let mut columns: Vec<&str> = vec![request.target.as_str()];
+    if let Some(w) = &request.weight {
+        columns.push(w);
+    }
+    columns.extend(features.iter().map(String::as_str));
+    let shards = pass::run(
+        source,
+        plan,
+        &columns,
+        || StatsAcc {
+            rows: 0,
+            skipped: 0,
+            rows_weighted: 0,
+            weight_sum: 0.0,
+            columns: vec![Moments::default(); features.len()],
+            target: Moments::default(),
+            labels: BTreeSet::new(),
+            numeric_labels: BTreeSet::new(),
+            class_weights: HashMap::new(),
+            positives: 0.0,
+            first_null: vec![None; features.len()],
+        },
+        |acc, at| stats_block(acc, source, request, features, &at),
+    )?;
+    let mut total = Summary {
+        rows: 0,
+        skipped_target: 0,
+        rows_weighted: 0,
+        weight_sum: 0.0,
+        columns: features
+            .iter()
+            .map(|f| (f.clone(), Moments::default()))
+            .collect(),
+        target: Moments::default(),
+        classes: Vec::new(),
+        class_weights: Vec::new(),
+    };
+    let mut labels = BTreeSet::new();
+    let mut numeric_labels = BTreeSet::new();
+    let mut class_weights: HashMap<String, f64> = HashMap::new();
+    let mut positives = 0.0;
+    let mut first_null: Vec<Option<String>> = vec![None; features.len()];
+    for shard in shards {
+        total.rows += shard.rows;
+        total.skipped_target += shard.skipped;
+        total.rows_weighted += shard.rows_weighted;
+        total.weight_sum += shard.weight_sum;
+        for (j, m) in shard.columns.iter().enumerate() {
+            total.columns[j].1.merge(m);
+            if first_null[j].is_none() {
+                first_null[j] = shard.first_null[j].clone();
+            }
+        }
+        total.target.merge(&shard.target);
+        labels.extend(shard.labels);
+        numeric_labels.extend(shard.numeric_labels);
+        for (k, v) in shard.class_weights {
+            *class_weights.entry(k).or_insert(0.0) += v;
+        }
+        positives += shard.positives;
+    }
+    if request.missing == MissingPolicy::Error {
+        for (j, (name, m)) in total.columns.iter().enumerate() {
+            if m.nulls > 0 {
+                return Err(Error::data(format!(
+                    "the feature '{name}' has {} null values, the first at {}; \
+                     fill them, drop the column, or use --missing mean",
+                    m.nulls,
+                    first_null[j].as_deref().unwrap_or("an unknown row")
+                )));
+            }
+        }
+    }
+    if request.loss == Loss::Softmax {
+        if !labels.is_empty() && !numeric_labels.is_empty() {
+            return Err(Error::data(format!(
+                "the target '{}' holds strings in some files and numbers in others",
+                request.target
+            )));
+        }
+        total.classes = if labels.is_empty() {
+            numeric_labels.iter().map(|v| v.to_string()).collect()
+        } else {
+            labels.into_iter().collect()
+        };
+        total.class_weights = total
+            .classes
+            .iter()
+            .map(|c| class_weights.get(c).copied().unwrap_or(0.0))
+            .collect();
+    } else if request.loss == Loss::Logistic {
+        total.class_weights = vec![positives];
+    }
+    Ok(total)
+}
+
+fn stats_block(
+    acc: &mut StatsAcc,
+    source: &Source,
+    request: &FeatureRequest,
+    features: &[String],
+    at: &BatchAt,
+) -> Result<()> {
+    let place = Place {
+        file: &source.files()[at.file],
+        first_row: at.first_row,
+    };
+    let n = at.batch.num_rows();
+    let target = read_target(request.loss, &request.target, at, place)?;
+    let weights = match &request.weight {
+        Some(w) => Some(read_weights(w, at, place)?),
+        None => None,
+    };
+    // Which rows are used: target present.
+    let mut used = vec![true; n];
+    for (i, keep) in used.iter_mut().enumerate() {
+        let null = match &target {
+            TargetValues::Numbers(v) => v.is_null(i),
+            TargetValues::Labels(v) => v[i].is_none(),
+        };
+        if null {
+            if !request.skip_missing_target {
+                return Err(Error::data(format!(
+                    "the target '{}' is null at {}; fill it, or pass --skip-missing-target to skip such rows",
+                    request.target,
+                    place.row(i)
+                )));
+            }
+            *keep = false;
+        }
+    }
+    let weight_of = |i: usize| weights.as_ref().map_or(1.0, |w| w.value(i));
+    for i in 0..n {
+        acc.rows += 1;
+        if !used[i] {
+            acc.skipped += 1;
+            continue;
+        }
+        let w = weight_of(i);
+        if w > 0.0 {
+            acc.rows_weighted += 1;
+        }
+        acc.weight_sum += w;
+        match &target {
+            TargetValues::Numbers(v) => {
+                let y = v.value(i);
+                acc.target.push(y, w);
+                match request.loss {
+                    Loss::Softmax => {
+                        acc.numeric_labels.insert(y as i64);
+                        *acc.class_weights.entry(numeric_label(y)).or_insert(0.0) += w;
+                    }
+                    Loss::Logistic => acc.positives += w * y,
+                    _ => {}
+                }
+            }
+            TargetValues::Labels(v) => {
+                if let Some(label) = &v[i] {
+                    if !acc.labels.contains(label) {
+                        acc.labels.insert(label.clone());
+                    }
+                    *acc.class_weights.entry(label.clone()).or_insert(0.0) += w;
+                }
+            }
+        }
+    }
+    for (j, name) in features.iter().enumerate() {
+        let array = at
+            .batch
+            .column_by_name(name)
+            .ok_or_else(|| Error::internal(format!("column '{name}' was not decoded")))?;
+        let values = values::as_f64(array, name, place)?;
+        values::check_finite(&values, name, place)?;
+        let m = &mut acc.columns[j];
+        for i in 0..n {
+            if !used[i] {
+                continue;
+            }
+            if values.is_null(i) {
+                m.push_null(weight_of(i));
+                if acc.first_null[j].is_none() {
+                    acc.first_null[j] = Some(place.row(i));
+                }
+            } else {
+                m.push(values.value(i), weight_of(i));
+            }
+        }
+    }
+    Ok(())
+}
+
+impl Design {
+    /// Fixes the design from the statistics pass. Returns the design and warnings for
+    /// the user (dropped columns).
+    pub fn new(request: &FeatureRequest, summary: &Summary) -> Result<(Design, Vec<String>)> {
+        let mut warnings = Vec::new();
+        if summary.rows_weighted == 0 || summary.weight_sum <= 0.0 {
+            return Err(Error::data(if summary.rows == 0 {
+                "the data hold no rows; there is nothing to fit".to_string()
+            } else {
+                "every row has weight zero or a missing target; there is nothing to fit".to_string()
+            }));
+        }
+        match request.loss {
+            Loss::Logistic => {
+                let pos = summary.class_weights.first().copied().unwrap_or(0.0);
+                if pos <= 0.0 || pos >= summary.weight_sum {
+                    return Err(Error::data(format!(
+                        "every row of the target '{}' is {}; logistic regression needs both 0s and 1s",
+                        request.target,
+                        if pos <= 0.0 { 0 } else { 1 }
+                    )));
+                }
+            }
+            Loss::Softmax => {
+                if summary.classes.len() < 2 {
+                    return Err(Error::data(format!(
+                        "the target '{}' has only one class ({}); softmax needs at least two",
+                        request.target,
+                        summary
+                            .classes
+                            .first()
+                            .map(String::as_str)
+                            .unwrap_or("none")
+                    )));
+                }
+            }
+            _ => {}
+        }
+        let mut features = Vec::new();
+        for (name, m) in &summary.columns {
+            let std = m.std();
+            if m.weight <= 0.0 {
+                warnings.push(format!(
+                    "the feature '{name}' has no non-null values in the rows used; it is left out"
+                ));
+                continue;
+            }
+            if !(std > 0.0) || std <= 1e-12 * m.mean.abs() {
+                warnings.push(format!(
+                    "the feature '{name}' is constant ({}) in the rows used; it is left out",
+                    m.mean
+                ));
+                continue;
+            }
+            let (center, scale) = if request.standardize {
+                (m.mean, std)
+            } else {
+                (0.0, 1.0)
+            };
+            features.push(Feature {
+                name: name.clone(),
+                column: name.clone(),
+                indicator: false,
+                mean: m.mean,
+                std,
+                impute: m.mean,
+                center,
+                scale,
+            });
+            if request.missing == MissingPolicy::Mean && m.null_weight > 0.0 {
+                let total = m.weight + m.null_weight;
+                let p = m.null_weight / total;
+                let std = (p * (1.0 - p)).sqrt();
+                let (center, scale) = if request.standardize {
+                    (p, std)
+                } else {
+                    (0.0, 1.0)
+                };
+                features.push(Feature {
+                    name: format!("{name}{MISSING_SUFFIX}"),
+                    column: name.clone(),
+                    indicator: true,
+                    mean: p,
+                    std,
+                    impute: 0.0,
+                    center,
+                    scale,
+                });
+            }
+        }
+        let class_index = summary
+            .classes
+            .iter()
+            .enumerate()
+            .map(|(i, c)| (c.clone(), i))
+            .collect();
+        Ok((
+            Design::from_parts(request, summary.classes.clone(), features, class_index),
+            warnings,
+        ))
+    }
+
+    /// A design from its parts (as stored in a model file).
+    pub fn from_parts(
+        request: &FeatureRequest,
+        classes: Vec<String>,
+        features: Vec<Feature>,
+        class_index: HashMap<String, usize>,
+    ) -> Design {
+        let mut feature_columns: Vec<String> = Vec::new();
+        for f in &features {
+            if !feature_columns.contains(&f.column) {
+                feature_columns.push(f.column.clone());
+            }
+        }
+        Design {
+            target: request.target.clone(),
+            weight: request.weight.clone(),
+            loss: request.loss,
+            classes,
+            features,
+            missing: request.missing,
+            skip_missing_target: request.skip_missing_target,
+            standardize: request.standardize,
+            class_index,
+            feature_columns,
+        }
+    }
+
+    /// Number of features (columns of the design matrix, intercept not counted).
+    pub fn width(&self) -> usize {
+        self.features.len()
+    }
+
+    /// Source columns of the features.
+    pub fn feature_columns(&self) -> &[String] {
+        &self.feature_columns
+    }
+
+    /// Columns a training pass decodes: target, weight, features.
+    pub fn training_columns(&self) -> Vec<&str> {
+        let mut out = vec![self.target.as_str()];
+        if let Some(w) = &self.weight {
+            out.push(w);
+        }
+        out.extend(self.feature_columns.iter().map(String::as_str));
+        out
+    }
+
+    /// Fills `block` with the features of `at` (centred and scaled), and with labels and
+    /// weights when `with_target` is set. Rows with a null target are dropped when the
+    /// design skips them.
+    pub fn build_block(
+        &self,
+        source: &Source,
+        at: &BatchAt,
+        with_target: bool,
+        block: &mut Block,
+    ) -> Result<()> {
+        let place = Place {
+            file: &source.files()[at.file],
+            first_row: at.first_row,
+        };
+        let n = at.batch.num_rows();
+        block.file = at.file;
+        block.first_row = at.first_row;
+        block.y.clear();
+        block.w.clear();
+        let mut keep: Option<Vec<bool>> = None;
+        if with_target {
+            let target = read_target(self.loss, &self.target, at, place)?;
+            let mut labels = Vec::with_capacity(n);
+            let mut kept = vec![true; n];
+            for (i, k) in kept.iter_mut().enumerate() {
+                let label = match &target {
+                    TargetValues::Numbers(v) if v.is_valid(i) => {
+                        let y = v.value(i);
+                        if self.loss == Loss::Softmax {
+                            Some(self.class_of(&numeric_label(y), place, i)?)
+                        } else {
+                            Some(y)
+                        }
+                    }
+                    TargetValues::Labels(v) => match &v[i] {
+                        Some(label) => Some(self.class_of(label, place, i)?),
+                        None => None,
+                    },
+                    TargetValues::Numbers(_) => None,
+                };
+                match label {
+                    Some(y) => labels.push(y),
+                    None if self.skip_missing_target => *k = false,
+                    None => {
+                        return Err(Error::data(format!(
+                            "the target '{}' is null at {}; fill it, or pass --skip-missing-target",
+                            self.target,
+                            place.row(i)
+                        )))
+                    }
+                }
+            }
+            block.y = labels;
+            if let Some(w) = &self.weight {
+                let weights = read_weights(w, at, place)?;
+                block.w = weights
+                    .values()
+                    .iter()
+                    .zip(&kept)
+                    .filter(|(_, k)| **k)
+                    .map(|(v, _)| *v)
+                    .collect();
+            }
+            if kept.iter().any(|k| !k) {
+                keep = Some(kept);
+            }
+        }
+        let rows = keep
+            .as_ref()
+            .map_or(n, |k| k.iter().filter(|v| **v).count());
+        block.rows = rows;
+        block.x.clear();
+        block.x.reserve(rows * self.features.len());
+        let mut cached: Option<(&str, Float64Array)> = None;
+        for feature in &self.features {
+            let values = match &cached {
+                Some((name, v)) if *name == feature.column => v.clone(),
+                _ => {
+                    let array = at.batch.column_by_name(&feature.column).ok_or_else(|| {
+                        Error::data(format!(
+                            "{} has no column '{}', which the model needs",
+                            place.file.path.display(),
+                            feature.column
+                        ))
+                    })?;
+                    let v = values::as_f64(array, &feature.column, place)?;
+                    values::check_finite(&v, &feature.column, place)?;
+                    cached = Some((feature.column.as_str(), v.clone()));
+                    v
+                }
+            };
+            let inv = 1.0 / feature.scale;
+            for i in 0..n {
+                if keep.as_ref().is_some_and(|k| !k[i]) {
+                    continue;
+                }
+                let raw = if values.is_null(i) {
+                    if self.missing == MissingPolicy::Error {
+                        return Err(Error::data(format!(
+                            "the feature '{}' is null at {}; fill it, or fit with --missing mean",
+                            feature.column,
+                            place.row(i)
+                        )));
+                    }
+                    if feature.indicator {
+                        1.0
+                    } else {
+                        feature.impute
+                    }
+                } else if feature.indicator {
+                    0.0
+                } else {
+                    values.value(i)
+                };
+                block.x.push((raw - feature.center) * inv);
+            }
+        }
+        Ok(())
+    }
+
+    fn class_of(&self, label: &str, place: Place<'_>, i: usize) -> Result<f64> {
+        self.class_index.get(label).map(|c| *c as f64).ok_or_else(|| {
+            Error::data(format!(
+                "the target '{}' has the class '{label}' at {}, which the model does not know (its classes: {})",
+                self.target,
+                place.row(i),
+                self.classes.join(", ")
+            ))
+        })
+    }
+}

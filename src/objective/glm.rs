@@ -1,0 +1,343 @@
+//! The GLM objective over streamed data: one pass per evaluation.
+
+use crate::features::{Block, Design};
+use crate::objective::loss::{self, Loss, MAX_EXP_MARGIN};
+use crate::optim::Objective;
+use crate::pass::{self, PassPlan};
+use crate::source::Source;
+use crate::Result;
+
+/// How the coefficient vector is laid out: `groups` runs of `1 + width` values, each an
+/// intercept followed by the coefficients of the `width` features.
+///
+/// Binary and single-output losses have one group. Softmax has one group per class when
+/// penalized (symmetric form), or one per class but the first when unpenalized (the
+/// first class is the reference with zero coefficients).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Layout {
+    /// Features per group.
+    pub width: usize,
+    /// Groups (outputs with their own coefficients).
+    pub groups: usize,
+    /// Softmax classes (0 for other losses).
+    pub classes: usize,
+    /// Softmax: the first class is the reference (margin fixed at 0).
+    pub reference: bool,
+}
+
+impl Layout {
+    /// The layout for a loss, feature count, class count and penalty.
+    pub fn new(loss: Loss, width: usize, classes: usize, penalized: bool) -> Layout {
+        match loss {
+            Loss::Softmax => Layout {
+                width,
+                groups: if penalized { classes } else { classes - 1 },
+                classes,
+                reference: !penalized,
+            },
+            _ => Layout {
+                width,
+                groups: 1,
+                classes: 0,
+                reference: false,
+            },
+        }
+    }
+
+    /// Length of the coefficient vector.
+    pub fn dim(&self) -> usize {
+        self.groups * (1 + self.width)
+    }
+
+    /// Index of the intercept of group `g`.
+    pub fn intercept(&self, g: usize) -> usize {
+        g * (1 + self.width)
+    }
+
+    /// True for coordinates that are intercepts (never penalized).
+    pub fn is_intercept(&self, i: usize) -> bool {
+        i % (1 + self.width) == 0
+    }
+
+    /// Softmax class of group `g`.
+    pub fn class_of_group(&self, g: usize) -> usize {
+        if self.reference {
+            g + 1
+        } else {
+            g
+        }
+    }
+}
+
+/// Per-shard sums of one evaluation pass.
+#[derive(Debug, Clone)]
+struct PassSums {
+    loss: f64,
+    grad: Vec<f64>,
+    /// Weight of rows the current coefficients classify wrongly (logistic, softmax).
+    wrong: f64,
+    /// First row whose Poisson margin overflows, as a message.
+    overflow: Option<String>,
+    block: Block,
+    z: Vec<f64>,
+}
+
+/// What the last evaluation saw besides the value and gradient.
+#[derive(Debug, Clone, PartialEq)]
+pub struct EvalExtras {
+    /// Point evaluated.
+    pub x: Vec<f64>,
+    /// Mean weighted loss (without the penalty).
+    pub mean_loss: f64,
+    /// Weight share of rows classified wrongly (logistic, softmax).
+    pub wrong_share: f64,
+    /// Poisson: where the margin overflowed, if it did.
+    pub overflow: Option<String>,
+}
+
+/// The objective of DESIGN §4 on streamed data, with ridge; L1 is left to the optimizer.
+pub struct GlmObjective<'a> {
+    source: &'a Source,
+    plan: &'a PassPlan,
+    design: &'a Design,
+    layout: Layout,
+    ridge: f64,
+    weight_sum: f64,
+    passes: u64,
+    last: Option<EvalExtras>,
+}
+
+impl<'a> GlmObjective<'a> {
+    /// The objective over `source` as cut by `plan`, with features from `design`.
+    pub fn new(
+        source: &'a Source,
+        plan: &'a PassPlan,
+        design: &'a Design,
+        layout: Layout,
+        ridge: f64,
+        weight_sum: f64,
+    ) -> Self {
+        GlmObjective {
+            source,
+            plan,
+            design,
+            layout,
+            ridge,
+            weight_sum,
+            passes: 0,
+            last: None,
+        }
+    }
+
+    /// Evaluation passes made so far.
+    pub fn passes(&self) -> u64 {
+        self.passes
+    }
+
+    /// What the last evaluation saw.
+    pub fn last_extras(&self) -> Option<&EvalExtras> {
+        self.last.as_ref()
+    }
+
+    /// The coefficient layout.
+    pub fn layout(&self) -> Layout {
+        self.layout
+    }
+}
+
+impl Objective for GlmObjective<'_> {
+    fn dim(&self) -> usize {
+        self.layout.dim()
+    }
+
+    fn eval(&mut self, x: &[f64], grad: &mut [f64]) -> Result<f64> {
+        let layout = self.layout;
+        let design = self.design;
+        let source = self.source;
+        let columns = design.training_columns();
+        let shards = pass::run(
+            source,
+            self.plan,
+            &columns,
+            || PassSums {
+                loss: 0.0,
+                grad: vec![0.0; layout.dim()],
+                wrong: 0.0,
+                overflow: None,
+                block: Block::default(),
+                z: Vec::new(),
+            },
+            |acc, at| {
+                let mut block = std::mem::take(&mut acc.block);
+                design.build_block(source, &at, true, &mut block)?;
+                accumulate(acc, &block, x, layout, design.loss, source);
+                acc.block = block;
+                Ok(())
+            },
+        )?;
+        self.passes += 1;
+        let mut loss_sum = 0.0;
+        let mut wrong = 0.0;
+        let mut overflow = None;
+        grad.fill(0.0);
+        for shard in &shards {
+            loss_sum += shard.loss;
+            wrong += shard.wrong;
+            for (g, s) in grad.iter_mut().zip(&shard.grad) {
+                *g += s;
+            }
+            if overflow.is_none() {
+                overflow = shard.overflow.clone();
+            }
+        }
+        let inv_w = 1.0 / self.weight_sum;
+        let mean_loss = loss_sum * inv_w;
+        let mut f = mean_loss;
+        let mut penalty = 0.0;
+        for (i, (g, xi)) in grad.iter_mut().zip(x).enumerate() {
+            *g *= inv_w;
+            if !layout.is_intercept(i) && self.ridge > 0.0 {
+                penalty += xi * xi;
+                *g += self.ridge * xi;
+            }
+        }
+        f += 0.5 * self.ridge * penalty;
+        if overflow.is_some() {
+            f = f64::INFINITY;
+        }
+        self.last = Some(EvalExtras {
+            x: x.to_vec(),
+            mean_loss,
+            wrong_share: wrong * inv_w,
+            overflow,
+        });
+        Ok(f)
+    }
+}
+
+/// Adds one block's loss and gradient to the shard sums.
+fn accumulate(
+    acc: &mut PassSums,
+    block: &Block,
+    x: &[f64],
+    layout: Layout,
+    loss: Loss,
+    source: &Source,
+) {
+    let n = block.rows;
+    if n == 0 {
+        return;
+    }
+    let groups = layout.groups;
+    margins(block, x, layout, &mut acc.z);
+    // Loss, and the residuals dℓ/dz (times the weight) in place of the margins.
+    match loss {
+        Loss::Softmax => softmax_rows(acc, block, layout),
+        _ => {
+            let z = &mut acc.z[..n];
+            let mut sum = 0.0;
+            let mut wrong = 0.0;
+            for i in 0..n {
+                let zi = z[i];
+                let y = block.y[i];
+                let w = block.weight(i);
+                let (l, d) = match loss {
+                    Loss::Logistic => {
+                        if (zi > 0.0) != (y > 0.5) {
+                            wrong += w;
+                        }
+                        loss::logistic(zi, y)
+                    }
+                    Loss::Squared => loss::squared(zi, y),
+                    _ => {
+                        if zi > MAX_EXP_MARGIN && acc.overflow.is_none() {
+                            acc.overflow = Some(format!(
+                                "row {} of {}",
+                                block.first_row + i as u64 + 1,
+                                source.files()[block.file].path.display()
+                            ));
+                        }
+                        loss::poisson(zi, y)
+                    }
+                };
+                sum += w * l;
+                z[i] = w * d;
+            }
+            acc.loss += sum;
+            acc.wrong += wrong;
+        }
+    }
+    let p = layout.width;
+    // Gradient: intercept sums the residuals, coefficient j is their dot with feature j.
+    for g in 0..groups {
+        let base = layout.intercept(g);
+        let r = &acc.z[g * n..(g + 1) * n];
+        acc.grad[base] += r.iter().sum::<f64>();
+        for j in 0..p {
+            let dot: f64 = r.iter().zip(block.column(j)).map(|(a, b)| a * b).sum();
+            acc.grad[base + 1 + j] += dot;
+        }
+    }
+}
+
+/// Margins of every group for every row of `block`, group-major: `z[g * rows + i]`.
+pub fn margins(block: &Block, x: &[f64], layout: Layout, z: &mut Vec<f64>) {
+    let n = block.rows;
+    z.clear();
+    z.resize(layout.groups * n, 0.0);
+    for g in 0..layout.groups {
+        let base = layout.intercept(g);
+        let zg = &mut z[g * n..(g + 1) * n];
+        zg.fill(x[base]);
+        for j in 0..layout.width {
+            let beta = x[base + 1 + j];
+            if beta != 0.0 {
+                for (zi, xi) in zg.iter_mut().zip(block.column(j)) {
+                    *zi += beta * xi;
+                }
+            }
+        }
+    }
+}
+
+/// Softmax loss per row; replaces the margins with weighted residuals `w (p_k − [y = k])`.
+fn softmax_rows(acc: &mut PassSums, block: &Block, layout: Layout) {
+    let n = block.rows;
+    let k = layout.classes;
+    let mut margins = vec![0.0; k];
+    let mut sum = 0.0;
+    let mut wrong = 0.0;
+    for i in 0..n {
+        for (c, m) in margins.iter_mut().enumerate() {
+            *m = if layout.reference {
+                if c == 0 {
+                    0.0
+                } else {
+                    acc.z[(c - 1) * n + i]
+                }
+            } else {
+                acc.z[c * n + i]
+            };
+        }
+        let y = block.y[i] as usize;
+        let w = block.weight(i);
+        let lse = loss::log_sum_exp(&margins);
+        sum += w * (lse - margins[y]);
+        let mut best = 0;
+        for c in 1..k {
+            if margins[c] > margins[best] {
+                best = c;
+            }
+        }
+        if best != y {
+            wrong += w;
+        }
+        for g in 0..layout.groups {
+            let c = layout.class_of_group(g);
+            let p = (margins[c] - lse).exp();
+            acc.z[g * n + i] = w * (p - if c == y { 1.0 } else { 0.0 });
+        }
+    }
+    acc.loss += sum;
+    acc.wrong += wrong;
+}
