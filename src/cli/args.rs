@@ -50,19 +50,19 @@ pub struct FitArgs {
     #[arg(long, value_name = "LOSS")]
     pub loss: Option<String>,
     /// Ridge strength: adds ridge/2 · ‖β‖² (intercept not penalized).
-    #[arg(long, value_name = "X")]
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
     pub ridge: Option<f64>,
     /// Lasso strength: adds lasso · ‖β‖₁ (fitted by OWL-QN; exact zeros).
-    #[arg(long, value_name = "X")]
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
     pub lasso: Option<f64>,
     /// Converged when max |gradient| ≤ tol · max(1, |objective|) (default 1e-6).
-    #[arg(long, value_name = "X")]
+    #[arg(long, value_name = "X", allow_negative_numbers = true)]
     pub tol: Option<f64>,
     /// Most full data passes, the statistics pass included.
     #[arg(long, value_name = "N")]
     pub max_passes: Option<u64>,
     /// Wall-clock budget in seconds.
-    #[arg(long, value_name = "S")]
+    #[arg(long, value_name = "S", allow_negative_numbers = true)]
     pub max_seconds: Option<f64>,
     /// L-BFGS history pairs (default 10).
     #[arg(long, value_name = "M")]
