@@ -7,10 +7,11 @@
 //!    pseudo-gradient under L1) and the budgets are checked; a run that is already done
 //!    stops without evaluating anything.
 //! 2. Direction: `d = −H g` from the two-loop recursion (OWL-QN: `−H ◇F`, then
-//!    constrained to the orthant). If `d` is not a descent direction, the history is
-//!    reset and `d = −g`. With no history (the first iteration, after a reset) the first
-//!    trial step is `α₀ = 1 / ‖d‖₂`, so the first trial point lies at unit distance;
-//!    otherwise `α₀ = 1`.
+//!    constrained to the orthant), first trial `α₀ = 1`. If `d` is not a descent
+//!    direction, the history is reset and the scaled steepest-descent direction
+//!    `d = −γ g` (`γ = sᵀy / yᵀy` of the newest pair) is used, still with `α₀ = 1`. With
+//!    no history at all (the first iteration) `d = −g` and `α₀ = 1 / ‖d‖₂`, so the first
+//!    trial point lies at unit distance.
 //! 3. Line search. Each trial is one evaluation and is counted.
 //!    - L-BFGS: Moré–Thuente for the strong Wolfe conditions. If the search ends short
 //!      of them (trial cap, rounding errors, interval too small), the trial with the
@@ -18,8 +19,16 @@
 //!      accepted instead; only when there is none has the search failed.
 //!    - OWL-QN: trial points `π(x + α d; ξ)` projected onto the orthant `ξ`; accepted
 //!      when `F(x⁺) ≤ F(x) + c1 · ◇F(x)ᵀ(x⁺ − x)`; otherwise `α` is halved.
-//! 4. A failed search is retried once from the steepest-descent direction with the
-//!    history cleared; if that fails too, the run stops with
+//!    - Near the rounding limit. When the decrease a trial can show, predicted from the
+//!      slope, is below [`ROUNDING_UNITS`] units of rounding of `F`, function values can
+//!      no longer decide. Such a trial is accepted on the approximate Wolfe conditions
+//!      of Hager & Zhang (2005, SIAM J. Optim. 16(1)): `F(x⁺) ≤ F(x) + ROUNDING_UNITS·ε·|F(x)|`
+//!      and `|F'(x⁺; s)| ≤ c2 · |F'(x; s)|` for the step `s = x⁺ − x` (one-sided
+//!      directional derivatives under L1). A search gives up after [`NOISY_TRIALS`]
+//!      more such trials, so a hopeless search costs a few evaluations, not the trial
+//!      cap.
+//! 4. A failed search is retried once from the scaled steepest-descent direction with
+//!    the history cleared; if that fails too, the run stops with
 //!    [`Stop::LineSearchFailed`] (or [`Stop::Converged`] if, and only if, the current
 //!    point meets the gradient test).
 //! 5. The pair `s = x⁺ − x`, `y = g⁺ − g` (smooth gradients) is kept when
@@ -36,9 +45,10 @@
 //! continues bitwise identically (iterates, values, evaluation counts).
 //!
 //! When a step ends on the evaluation budget inside a line search, the state stays at
-//! the last accepted iterate and the evaluations spent in that search are counted (they
-//! were real passes). Continuing it with a larger budget gives the same iterates as a
-//! run that never stopped, with those extra evaluations in the count. When an
+//! the last accepted iterate (history included, even if the step was about to reset it)
+//! and the evaluations spent in that search are counted (they were real passes).
+//! Continuing it with a larger budget gives the same iterates as a run that never
+//! stopped, with those extra evaluations in the count. When an
 //! evaluation returns an error, the state is left exactly as it was before the step.
 
 use std::time::Instant;
@@ -58,6 +68,24 @@ const STEP_MAX: f64 = 1e20;
 const XTOL: f64 = 1e-10;
 /// Factor by which the OWL-QN backtracking search shrinks a rejected step.
 const BACKTRACK: f64 = 0.5;
+/// A trial whose decrease, predicted from the slope, is below this many units of
+/// rounding of the objective's value is decided by rounding noise ("noisy").
+const ROUNDING_UNITS: f64 = 10.0;
+/// A line search gives up after this many noisy trials after the first: near the
+/// rounding limit a noisy trial is sometimes accepted (and still improves the
+/// gradient), but every evaluation is a pass over the data.
+const NOISY_TRIALS: usize = 3;
+
+/// How far above `f0` a trial decided by rounding may end and still be accepted.
+fn rounding_slack(f0: f64) -> f64 {
+    ROUNDING_UNITS * f64::EPSILON * f0.abs()
+}
+
+/// Whether a predicted change `predicted` of an objective of value `f0` is below the
+/// resolution of float64 arithmetic (see [`ROUNDING_UNITS`]).
+fn below_rounding(predicted: f64, f0: f64) -> bool {
+    predicted.abs() <= ROUNDING_UNITS * f64::EPSILON * f0.abs().max(f64::MIN_POSITIVE)
+}
 
 /// What went wrong in a line search that found no acceptable step.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -68,6 +96,8 @@ enum Failure {
     TrialCap,
     /// Every trial was rejected and the steps became too small to move the point.
     NoMove,
+    /// The decrease the next trial could show is below the objective's rounding error.
+    BelowRounding,
 }
 
 impl Failure {
@@ -89,6 +119,9 @@ impl Failure {
             }
             Failure::TrialCap => format!("no acceptable step within {trials} trials"),
             Failure::NoMove => "the trial steps became too small to move the point".to_string(),
+            Failure::BelowRounding => "the decrease still possible along the search direction \
+                                       is below the rounding error of the objective"
+                .to_string(),
         }
     }
 }
@@ -459,17 +492,7 @@ impl Optimizer {
         let mut failure = Failure::TrialCap;
         let mut trials = 0usize;
         for _attempt in 0..2 {
-            let steepest = self.direction(owl, &mut reset);
-            let step0 = if steepest {
-                let n = norm2(&self.work.d);
-                if n > 0.0 && n.is_finite() {
-                    1.0 / n
-                } else {
-                    1.0
-                }
-            } else {
-                1.0
-            };
+            let (steepest, step0) = self.direction(owl, &mut reset);
             let result = if owl {
                 self.search_backtracking(obj, step0, &mut used, &mut trials)?
             } else {
@@ -484,10 +507,9 @@ impl Optimizer {
                     return Ok(self.accept(step, f));
                 }
                 Search::Budget => {
+                    // The history is kept even when it was to be reset: continuing from
+                    // this state redoes the same reset and the same search.
                     self.state.evaluations += used;
-                    if reset {
-                        self.clear_history();
-                    }
                     return Ok(self.finish(Stop::PassBudget, None, None));
                 }
                 Search::Failed(why) => {
@@ -521,8 +543,15 @@ impl Optimizer {
     }
 
     /// Fills `work.d` (and for OWL-QN `work.pg`, `work.xi`) with the search direction.
-    /// Returns whether it is the steepest-descent direction (no history in use).
-    fn direction(&mut self, owl: bool, reset: &mut bool) -> bool {
+    /// Returns whether it is a steepest-descent direction (no history in use) and the
+    /// first trial step.
+    ///
+    /// Steepest descent is `−g` with a first trial at unit distance when there is no
+    /// history at all, and `−γ g` with `γ = sᵀy / yᵀy` of the newest pair and a first
+    /// trial of 1 when a history is being reset (a non-descent direction, or the retry
+    /// after a failed search): the newest pair's curvature is a far better step scale
+    /// than unit distance near a minimum.
+    fn direction(&mut self, owl: bool, reset: &mut bool) -> (bool, f64) {
         let st = &self.state;
         let w = &mut self.work;
         let grad: &[f64] = if owl {
@@ -531,29 +560,47 @@ impl Optimizer {
         } else {
             &st.g
         };
-        let mut steepest = *reset || st.s.is_empty();
-        if steepest {
-            for (d, g) in w.d.iter_mut().zip(grad) {
-                *d = -g;
-            }
-        } else {
+        if !*reset && !st.s.is_empty() {
             two_loop(&st.s, &st.y, grad, &mut w.d, &mut w.alpha);
             if owl {
                 constrain_direction(&st.settings.l1, grad, &mut w.d);
             }
             let slope = dot(grad, &w.d);
-            if !(slope < 0.0 && slope.is_finite()) {
-                *reset = true;
-                steepest = true;
+            if slope < 0.0 && slope.is_finite() {
+                if owl {
+                    orthant(&st.x, &w.pg, &mut w.xi);
+                }
+                return (false, 1.0);
+            }
+            *reset = true;
+        }
+        let newest = st.s.len().checked_sub(1);
+        let gamma = newest
+            .map(|k| dot(&st.s[k], &st.y[k]) / dot(&st.y[k], &st.y[k]))
+            .filter(|g| *g > 0.0 && g.is_finite());
+        let step0 = match gamma {
+            Some(gamma) => {
+                for (d, g) in w.d.iter_mut().zip(grad) {
+                    *d = -gamma * g;
+                }
+                1.0
+            }
+            None => {
                 for (d, g) in w.d.iter_mut().zip(grad) {
                     *d = -g;
                 }
+                let n = norm2(&w.d);
+                if n > 0.0 && n.is_finite() {
+                    1.0 / n
+                } else {
+                    1.0
+                }
             }
-        }
+        };
         if owl {
             orthant(&st.x, &w.pg, &mut w.xi);
         }
-        steepest
+        (true, step0)
     }
 
     /// Whether one more evaluation fits the budget.
@@ -588,9 +635,11 @@ impl Optimizer {
             },
         );
         let max_trials = s.max_line_search_trials;
+        let c2 = s.c2;
         // The best trial that met sufficient decrease and lowered f: (step, f).
         let mut best: Option<(f64, f64)> = None;
         let mut trials = 0usize;
+        let mut noisy = 0usize;
         let failure = loop {
             if trials >= max_trials {
                 break Failure::TrialCap;
@@ -612,6 +661,17 @@ impl Optimizer {
             } else {
                 f64::NAN
             };
+            // A trial whose predicted decrease is below the rounding of f cannot show
+            // sufficient decrease except by chance; accept it on the approximate Wolfe
+            // conditions (no increase beyond rounding, strong curvature condition).
+            if moved
+                && below_rounding(step * d0, f0)
+                && f <= f0 + rounding_slack(f0)
+                && slope.is_finite()
+                && slope.abs() <= c2 * (-d0)
+            {
+                return Ok(Search::Accepted { step, f });
+            }
             if f.is_finite()
                 && slope.is_finite()
                 && moved
@@ -626,7 +686,15 @@ impl Optimizer {
             match search.next(step, f, slope) {
                 Next::Converged if moved => return Ok(Search::Accepted { step, f }),
                 Next::Converged => break Failure::Stuck(Warning::Rounding),
-                Next::Evaluate(next) => step = next,
+                Next::Evaluate(next) => {
+                    if below_rounding(next * d0, f0) {
+                        noisy += 1;
+                        if noisy > NOISY_TRIALS {
+                            break Failure::BelowRounding;
+                        }
+                    }
+                    step = next
+                }
                 Next::Stuck(why) => break Failure::Stuck(why),
             }
         };
@@ -651,9 +719,11 @@ impl Optimizer {
     ) -> Result<Search> {
         let f0 = self.state.f;
         let c1 = self.state.settings.c1;
+        let c2 = self.state.settings.c2;
         let max_trials = self.state.settings.max_line_search_trials;
         let mut step = step0;
         let mut trials = 0usize;
+        let mut noisy = 0usize;
         let mut moved_once = false;
         loop {
             if trials >= max_trials {
@@ -683,13 +753,39 @@ impl Optimizer {
                 w.pg.iter()
                     .zip(w.xt.iter().zip(&self.state.x))
                     .fold(0.0, |acc, (p, (xt, x))| acc + p * (xt - x));
-            if f.is_finite()
-                && w.gt.iter().all(|v| v.is_finite())
+            let finite = f.is_finite() && w.gt.iter().all(|v| v.is_finite());
+            if finite && moved && predicted < 0.0 && f <= f0 + c1 * predicted {
+                return Ok(Search::Accepted { step, f });
+            }
+            // Below the rounding of F: the approximate Wolfe conditions, with the
+            // one-sided directional derivative of F at the trial along the step.
+            if finite
                 && moved
                 && predicted < 0.0
-                && f <= f0 + c1 * predicted
+                && below_rounding(predicted, f0)
+                && f <= f0 + rounding_slack(f0)
             {
-                return Ok(Search::Accepted { step, f });
+                let slope: f64 = (0..w.xt.len()).fold(0.0, |acc, j| {
+                    let sj = w.xt[j] - self.state.x[j];
+                    let lam = l1[j];
+                    let kink = if lam <= 0.0 {
+                        0.0
+                    } else if w.xt[j] != 0.0 {
+                        lam * w.xt[j].signum() * sj
+                    } else {
+                        lam * sj.abs()
+                    };
+                    acc + w.gt[j] * sj + kink
+                });
+                if slope.abs() <= c2 * (-predicted) {
+                    return Ok(Search::Accepted { step, f });
+                }
+            }
+            if moved && below_rounding(BACKTRACK * predicted, f0) {
+                noisy += 1;
+                if noisy > NOISY_TRIALS {
+                    return Ok(Search::Failed(Failure::BelowRounding));
+                }
             }
             step *= BACKTRACK;
         }
