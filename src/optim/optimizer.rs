@@ -491,7 +491,9 @@ impl Optimizer {
         let mut reset = false;
         let mut failure = Failure::TrialCap;
         let mut trials = 0usize;
-        for _attempt in 0..2 {
+        let mut attempts = 0;
+        for _ in 0..2 {
+            attempts += 1;
             let (steepest, step0) = self.direction(owl, &mut reset);
             let result = if owl {
                 self.search_backtracking(obj, step0, &mut used, &mut trials)?
@@ -534,9 +536,13 @@ impl Optimizer {
              larger tolerance (--tol), or standardize the features or add a small ridge \
              penalty (--ridge); check also that the gradient is that of the objective"
         };
+        let retried = if attempts > 1 {
+            "; also from the steepest-descent direction"
+        } else {
+            ", along the steepest-descent direction"
+        };
         let message = format!(
-            "the line search found no step that lowers the objective ({}; also from the \
-             steepest-descent direction): {advice}",
+            "the line search found no step that lowers the objective ({}{retried}): {advice}",
             failure.describe(trials)
         );
         Ok(self.finish(Stop::LineSearchFailed, None, Some(message)))
