@@ -4,11 +4,15 @@
 //! The driver calls back with [`FitEvent`]s (warnings, one record per iteration) so the
 //! binary can print progress and the run directory can log it; it never prints.
 
+use std::path::{Path, PathBuf};
+use std::sync::atomic::AtomicBool;
+use std::sync::Arc;
 use std::time::Instant;
 
 use serde::{Deserialize, Serialize};
 
-use crate::features::{self, Design, FeatureRequest, Summary};
+use crate::checkpoint::{self, Checkpoint, Progress, RunIdentity};
+use crate::features::{self, Design, Feature, FeatureRequest, Summary};
 use crate::model::{FitRecord, Model, Penalty};
 use crate::objective::{GlmObjective, Layout, Loss};
 use crate::optim::{Optimizer, Settings, StepOutcome, Stop};
@@ -101,6 +105,11 @@ impl FitSettings {
         Ok(())
     }
 
+    /// True when a ridge or lasso penalty is set.
+    pub fn penalized(&self) -> bool {
+        self.ridge > 0.0 || self.lasso > 0.0
+    }
+
     /// The shard count in force.
     pub fn shard_count(&self) -> usize {
         self.shards.unwrap_or(self.threads).max(1)
@@ -172,6 +181,13 @@ pub enum FitEvent<'a> {
     Warning(&'a str),
     /// An iteration was accepted.
     Iteration(&'a IterationRecord),
+    /// A resumed fit has read its checkpoint and goes on from this iteration.
+    Resumed {
+        /// Iterations done before the checkpoint.
+        iteration: u64,
+        /// Passes done before the checkpoint.
+        passes: u64,
+    },
 }
 
 /// The result of a fit.
@@ -185,10 +201,104 @@ pub struct FitOutcome {
     pub log: Vec<IterationRecord>,
 }
 
+/// How a fit is watched from outside: a cancel flag and where to checkpoint.
+#[derive(Debug, Clone, Default)]
+pub struct Control {
+    /// Set by a signal handler: the fit stops at the next block boundary with an
+    /// [`crate::ErrorKind::Interrupted`] error, its last checkpoint intact.
+    pub cancel: Option<Arc<AtomicBool>>,
+    /// Run directory to checkpoint into after every accepted iteration (none: no
+    /// checkpoints).
+    pub checkpoint_dir: Option<PathBuf>,
+}
+
+/// What may change when a fit is resumed: nothing that changes the objective.
+#[derive(Debug, Clone, Default)]
+pub struct ResumeOverrides {
+    /// New total pass budget.
+    pub max_passes: Option<u64>,
+    /// New time budget in seconds (for the whole fit).
+    pub max_seconds: Option<f64>,
+    /// Threads for the passes.
+    pub threads: Option<usize>,
+}
+
+/// The statistics and design of a fit, fixed after the statistics pass; saved in
+/// checkpoints so a resumed fit needs no second statistics pass.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+struct DesignRecord {
+    features: Vec<Feature>,
+    classes: Vec<String>,
+    rows: u64,
+    rows_skipped: u64,
+    weight_sum: f64,
+    warnings: Vec<String>,
+    /// Driver counters that are part of the fit's state (the separation watch).
+    separated_iterations: u32,
+}
+
+/// A fit in progress: data, design, objective layout and where it stands.
+struct Session {
+    data: Vec<String>,
+    settings: FitSettings,
+    source: Source,
+    plan: PassPlan,
+    design: Design,
+    record: DesignRecord,
+    layout: Layout,
+    started: Instant,
+    prior_seconds: f64,
+}
+
+/// The settings that define the objective and the iterates (compared on resume).
+fn objective_settings(settings: &FitSettings) -> serde_json::Value {
+    serde_json::json!({
+        "request": settings.request,
+        "ridge": settings.ridge,
+        "lasso": settings.lasso,
+        "tol": settings.tol,
+        "history": settings.history,
+        "block_rows": settings.block_rows,
+    })
+}
+
+impl Session {
+    fn identity(&self) -> RunIdentity {
+        RunIdentity {
+            data: self.data.clone(),
+            fingerprint: self.source.fingerprint(),
+            shards: self.settings.shard_count(),
+            objective_settings: objective_settings(&self.settings),
+            design: serde_json::to_value(&self.record).unwrap_or(serde_json::Value::Null),
+        }
+    }
+
+    fn seconds(&self) -> f64 {
+        self.prior_seconds + self.started.elapsed().as_secs_f64()
+    }
+
+    fn save_checkpoint(&self, control: &Control, optimizer: &Optimizer, passes: u64) -> Result<()> {
+        let Some(dir) = &control.checkpoint_dir else {
+            return Ok(());
+        };
+        let cp = Checkpoint {
+            identity: self.identity(),
+            progress: Progress {
+                passes,
+                seconds: self.seconds(),
+            },
+            state: optimizer.state().clone(),
+            partial: None,
+        };
+        checkpoint::save(dir, &cp)
+    }
+}
+
 /// Fits a model on the Parquet files named by `data`.
 pub fn fit(
     data: &[String],
     settings: &FitSettings,
+    control: &Control,
     events: &mut dyn FnMut(FitEvent<'_>),
 ) -> Result<FitOutcome> {
     settings.validate()?;
@@ -196,9 +306,10 @@ pub fn fit(
     let source = Source::open_with_block_rows(data, settings.block_rows)?;
     let request = &settings.request;
     let candidates = features::resolve_columns(&source, request)?;
-    let plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
+    let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
+    plan.cancel = control.cancel.clone();
     let summary = features::collect_stats(&source, &plan, request, &candidates)?;
-    let (design, mut warnings) = Design::new(request, &summary)?;
+    let (design, warnings) = Design::new(request, &summary)?;
     events(FitEvent::Statistics {
         summary: &summary,
         features: design.width(),
@@ -212,14 +323,159 @@ pub fn fit(
             "no usable feature is left (every candidate is constant or empty); name other columns with --features",
         ));
     }
-    let penalized = settings.ridge > 0.0 || settings.lasso > 0.0;
     let layout = Layout::new(
         request.loss,
         design.width(),
         design.classes.len(),
-        penalized,
+        settings.penalized(),
     );
     let x0 = starting_point(&design, &summary, layout)?;
+    let record = DesignRecord {
+        features: design.features.clone(),
+        classes: design.classes.clone(),
+        rows: summary.rows,
+        rows_skipped: summary.skipped_target,
+        weight_sum: summary.weight_sum,
+        warnings,
+        separated_iterations: 0,
+    };
+    let mut session = Session {
+        data: data.to_vec(),
+        settings: settings.clone(),
+        source,
+        plan,
+        design,
+        record,
+        layout,
+        started,
+        prior_seconds: 0.0,
+    };
+    let optim_settings = optimizer_settings(settings, layout);
+    let mut objective = GlmObjective::new(
+        &session.source,
+        &session.plan,
+        &session.design,
+        layout,
+        settings.ridge,
+        session.record.weight_sum,
+    );
+    let optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
+    if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
+        return Err(poisson_overflow(&place));
+    }
+    let passes = 1 + objective.passes();
+    drop(objective);
+    session.save_checkpoint(control, &optimizer, passes)?;
+    drive(&mut session, optimizer, passes, control, events)
+}
+
+/// What a resumed fit needs besides the checkpoint: the data and settings it started with.
+#[derive(Debug, Clone)]
+pub struct ResumeSource {
+    /// Data paths of the fit.
+    pub data: Vec<String>,
+    /// Settings of the fit.
+    pub settings: FitSettings,
+}
+
+/// Continues a fit from the checkpoint in `dir`, ending exactly where the uninterrupted
+/// fit would have ended. Refuses, naming what changed, when the data or the settings
+/// that define the objective differ from the checkpoint's. Returns the outcome and a
+/// warning when the older checkpoint had to be used.
+pub fn resume(
+    dir: &Path,
+    started_with: &ResumeSource,
+    overrides: &ResumeOverrides,
+    control: &Control,
+    events: &mut dyn FnMut(FitEvent<'_>),
+) -> Result<FitOutcome> {
+    let started = Instant::now();
+    let loaded = checkpoint::load(dir)?;
+    if let Some(w) = &loaded.warning {
+        events(FitEvent::Warning(w));
+    }
+    let cp = loaded.checkpoint;
+    events(FitEvent::Resumed {
+        iteration: cp.state.iterations,
+        passes: cp.progress.passes,
+    });
+    let mut settings = started_with.settings.clone();
+    if overrides.max_passes.is_some() {
+        settings.max_passes = overrides.max_passes;
+    }
+    if overrides.max_seconds.is_some() {
+        settings.max_seconds = overrides.max_seconds;
+    }
+    if let Some(t) = overrides.threads {
+        settings.threads = t;
+    }
+    // The shard count is part of the fit: keep the recorded one whatever the threads.
+    settings.shards = Some(cp.identity.shards);
+    settings.validate()?;
+    let record: DesignRecord = serde_json::from_value(cp.identity.design.clone()).map_err(|e| {
+        Error::format(format!(
+            "the checkpoint in {} holds no usable feature design ({e}); start the fit again",
+            dir.display()
+        ))
+    })?;
+    let source = Source::open_with_block_rows(&cp.identity.data, settings.block_rows)?;
+    let now = RunIdentity {
+        data: cp.identity.data.clone(),
+        fingerprint: source.fingerprint(),
+        shards: settings.shard_count(),
+        objective_settings: objective_settings(&settings),
+        design: serde_json::Value::Null,
+    };
+    checkpoint::check_resume(&cp.identity, &now)?;
+    let request = &settings.request;
+    let class_index = record
+        .classes
+        .iter()
+        .enumerate()
+        .map(|(i, c)| (c.clone(), i))
+        .collect();
+    let design = Design::from_parts(
+        request,
+        record.classes.clone(),
+        record.features.clone(),
+        class_index,
+    );
+    let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
+    plan.cancel = control.cancel.clone();
+    let layout = Layout::new(
+        request.loss,
+        design.width(),
+        design.classes.len(),
+        settings.penalized(),
+    );
+    let mut session = Session {
+        data: cp.identity.data.clone(),
+        settings: settings.clone(),
+        source,
+        plan,
+        design,
+        record,
+        layout,
+        started,
+        prior_seconds: cp.progress.seconds,
+    };
+    let mut state = cp.state;
+    if state.x.len() != layout.dim() {
+        return Err(Error::format(format!(
+            "the checkpoint in {} holds {} coefficients where the design needs {}; start the fit again",
+            dir.display(),
+            state.x.len(),
+            layout.dim()
+        )));
+    }
+    let budget = optimizer_settings(&settings, layout);
+    state.settings.max_evals = budget.max_evals;
+    state.settings.max_seconds = budget.max_seconds;
+    let optimizer = Optimizer::from_state(state)?;
+    drive(&mut session, optimizer, cp.progress.passes, control, events)
+}
+
+fn optimizer_settings(settings: &FitSettings, layout: Layout) -> Settings {
     let mut l1 = Vec::new();
     if settings.lasso > 0.0 {
         l1 = (0..layout.dim())
@@ -232,30 +488,39 @@ pub fn fit(
             })
             .collect();
     }
-    let optim_settings = Settings {
+    Settings {
         history: settings.history,
         tol: settings.tol,
         max_evals: settings.max_passes.map(|p| p.saturating_sub(1)),
-        max_seconds: settings
-            .max_seconds
-            .map(|s| (s - started.elapsed().as_secs_f64()).max(0.0)),
+        max_seconds: settings.max_seconds,
         l1,
         ..Settings::default()
-    };
+    }
+}
+
+/// The iteration loop shared by a fresh and a resumed fit.
+fn drive(
+    session: &mut Session,
+    mut optimizer: Optimizer,
+    passes_before: u64,
+    control: &Control,
+    events: &mut dyn FnMut(FitEvent<'_>),
+) -> Result<FitOutcome> {
+    let settings = session.settings.clone();
+    let request = &settings.request;
+    let layout = session.layout;
+    let penalized = settings.penalized();
+    let separable_watch = !penalized && matches!(request.loss, Loss::Logistic | Loss::Softmax);
     let mut objective = GlmObjective::new(
-        &source,
-        &plan,
-        &design,
+        &session.source,
+        &session.plan,
+        &session.design,
         layout,
         settings.ridge,
-        summary.weight_sum,
+        session.record.weight_sum,
     );
-    let mut optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
-    if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
-        return Err(poisson_overflow(&place));
-    }
-    let separable_watch = !penalized && matches!(request.loss, Loss::Logistic | Loss::Softmax);
-    let mut separated_iterations = 0;
+    // The objective counts evaluation passes; the statistics pass comes first.
+    let passes_now = |objective: &GlmObjective<'_>| passes_before + objective.passes();
     let mut log = Vec::new();
     let mut message = None;
     let stop = loop {
@@ -271,14 +536,14 @@ pub fn fit(
                 (last, Some(stop))
             }
         };
-        if let Some(it) = last {
+        if let Some(it) = &last {
             let record = IterationRecord {
                 iteration: it.iteration,
-                passes: 1 + objective.passes(),
+                passes: passes_now(&objective),
                 objective: it.f,
                 gradient_max: it.gradient_max,
                 step: it.step,
-                seconds: started.elapsed().as_secs_f64(),
+                seconds: session.prior_seconds + session.started.elapsed().as_secs_f64(),
                 pairs_skipped: it.pairs_skipped,
             };
             events(FitEvent::Iteration(&record));
@@ -293,16 +558,15 @@ pub fn fit(
             break FitStop::Optimizer(stop);
         }
         if separable_watch {
-            let extras = objective.last_extras();
-            let separated = extras.is_some_and(|e| {
+            let separated = objective.last_extras().is_some_and(|e| {
                 e.x.as_slice() == optimizer.x() && e.wrong_share == 0.0 && e.mean_loss < 1e-2
             });
-            separated_iterations = if separated {
-                separated_iterations + 1
+            session.record.separated_iterations = if separated {
+                session.record.separated_iterations + 1
             } else {
                 0
             };
-            if separated_iterations >= 3 {
+            if session.record.separated_iterations >= 3 {
                 message = Some(
                     "the classes look perfectly separable: every training row is classified \
                      correctly and the coefficients grow without bound, so there is no finite \
@@ -312,11 +576,20 @@ pub fn fit(
                 break FitStop::Separable;
             }
         }
-    };
-    if let FitStop::Optimizer(Stop::Converged) = stop {
-        if separable_watch {
-            large_coefficient_warning(&design, optimizer.x(), layout, &mut warnings, events);
+        if last.is_some() {
+            let passes = passes_now(&objective);
+            session.save_checkpoint(control, &optimizer, passes)?;
         }
+    };
+    let mut warnings = session.record.warnings.clone();
+    if stop.is_converged() && separable_watch {
+        large_coefficient_warning(
+            &session.design,
+            optimizer.x(),
+            layout,
+            &mut warnings,
+            events,
+        );
     }
     let fit = FitRecord {
         stop: stop.as_str().to_string(),
@@ -325,12 +598,12 @@ pub fn fit(
         gradient_max: optimizer.gradient_max(),
         tol: settings.tol,
         iterations: optimizer.state().iterations,
-        passes: 1 + objective.passes(),
-        seconds: started.elapsed().as_secs_f64(),
-        rows: summary.rows,
-        weight_sum: summary.weight_sum,
-        rows_skipped: summary.skipped_target,
-        data_fingerprint: source.fingerprint(),
+        passes: passes_now(&objective),
+        seconds: session.prior_seconds + session.started.elapsed().as_secs_f64(),
+        rows: session.record.rows,
+        weight_sum: session.record.weight_sum,
+        rows_skipped: session.record.rows_skipped,
+        data_fingerprint: session.source.fingerprint(),
         shards: settings.shard_count(),
         history: settings.history,
         warnings,
@@ -339,10 +612,10 @@ pub fn fit(
         loss: request.loss,
         target: request.target.clone(),
         weight: request.weight.clone(),
-        classes: design.classes.clone(),
-        features: design.features.clone(),
-        missing: design.missing,
-        standardize: design.standardize,
+        classes: session.design.classes.clone(),
+        features: session.design.features.clone(),
+        missing: session.design.missing,
+        standardize: session.design.standardize,
         layout,
         internal: optimizer.x().to_vec(),
         penalty: Penalty {
@@ -402,7 +675,7 @@ fn starting_point(design: &Design, summary: &Summary, layout: Layout) -> Result<
         Loss::Squared => x[0] = summary.target.mean,
         Loss::Poisson => {
             let mean = summary.target.mean;
-            if !(mean > 0.0) {
+            if mean.is_nan() || mean <= 0.0 {
                 return Err(Error::data(format!(
                     "every count of the target '{}' is 0; a Poisson model needs some positive counts",
                     design.target

@@ -41,8 +41,11 @@
 //! ```
 
 #![warn(missing_docs)]
+// Kernels index several parallel slices by row; an index loop says that most plainly.
+#![allow(clippy::needless_range_loop)]
 
 pub mod atomic;
+pub mod checkpoint;
 pub mod demo;
 pub mod error;
 pub mod features;

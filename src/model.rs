@@ -310,7 +310,7 @@ impl Model {
             .collect();
         if features
             .iter()
-            .any(|f| !(f.scale > 0.0) || !f.center.is_finite())
+            .any(|f| f.scale.is_nan() || f.scale <= 0.0 || !f.center.is_finite())
         {
             return Err(Error::format("a feature has an invalid scale"));
         }

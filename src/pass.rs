@@ -9,7 +9,7 @@
 //! **Invariant:** a pass's result does not depend on the thread count or on scheduling.
 
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
-use std::sync::Mutex;
+use std::sync::{Arc, Mutex};
 
 use crate::source::{BatchAt, Segment, Source};
 use crate::{Error, Result};
@@ -21,6 +21,9 @@ pub struct PassPlan {
     pub shards: Vec<Vec<Segment>>,
     /// Threads that run shards at once.
     pub threads: usize,
+    /// When set (by a signal handler), passes stop at the next block boundary with an
+    /// [`crate::ErrorKind::Interrupted`] error.
+    pub cancel: Option<Arc<AtomicBool>>,
 }
 
 impl PassPlan {
@@ -29,6 +32,7 @@ impl PassPlan {
         PassPlan {
             shards: source.shards(shards.max(1)),
             threads: threads.max(1),
+            cancel: None,
         }
     }
 }
@@ -62,7 +66,16 @@ where
         let mut acc = init();
         let mut outcome = Ok(());
         for segment in &plan.shards[shard] {
-            outcome = source.read_segment(segment, columns, |batch| fold(&mut acc, batch));
+            outcome = source.read_segment(segment, columns, |batch| {
+                if plan
+                    .cancel
+                    .as_ref()
+                    .is_some_and(|c| c.load(Ordering::Relaxed))
+                {
+                    return Err(Error::interrupted());
+                }
+                fold(&mut acc, batch)
+            });
             if outcome.is_err() || failed.load(Ordering::Relaxed) {
                 break;
             }

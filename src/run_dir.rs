@@ -5,7 +5,7 @@ use std::fs::{self, File, OpenOptions};
 use std::io::Write;
 use std::path::{Path, PathBuf};
 
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::fit::{FitSettings, IterationRecord};
 use crate::{atomic, Error, Result};
@@ -20,6 +20,17 @@ pub const LOG_FILE: &str = "log.jsonl";
 pub struct RunDir {
     path: PathBuf,
     log: File,
+}
+
+/// Format of `settings.json`.
+pub const RUN_FORMAT: &str = "outcore-run/1";
+
+#[derive(Deserialize)]
+struct OwnedSettingsRecord {
+    format: String,
+    data: Vec<String>,
+    model: PathBuf,
+    settings: FitSettings,
 }
 
 #[derive(Serialize)]
@@ -46,7 +57,7 @@ impl RunDir {
         }
         fs::create_dir_all(path).map_err(|e| Error::io(path, e))?;
         let record = SettingsRecord {
-            format: "outcore-run/1",
+            format: RUN_FORMAT,
             data,
             model,
             settings,
@@ -65,6 +76,55 @@ impl RunDir {
             path: path.to_path_buf(),
             log,
         })
+    }
+
+    /// Opens the run directory of a fit being resumed: keeps the log lines of the first
+    /// `iterations` iterations and appends after them.
+    pub fn reopen(path: &Path, iterations: u64) -> Result<RunDir> {
+        let log_path = path.join(LOG_FILE);
+        let text = fs::read_to_string(&log_path).unwrap_or_default();
+        let kept: String = text
+            .lines()
+            .filter(|line| {
+                serde_json::from_str::<IterationRecord>(line)
+                    .is_ok_and(|r| r.iteration <= iterations)
+            })
+            .flat_map(|line| [line, "\n"])
+            .collect();
+        atomic::write(&log_path, kept.as_bytes())?;
+        let log = OpenOptions::new()
+            .append(true)
+            .open(&log_path)
+            .map_err(|e| Error::io(&log_path, e))?;
+        Ok(RunDir {
+            path: path.to_path_buf(),
+            log,
+        })
+    }
+
+    /// Reads the data paths, model path and settings a fit in `path` started with.
+    pub fn read_settings(path: &Path) -> Result<(Vec<String>, PathBuf, FitSettings)> {
+        let file = path.join(SETTINGS_FILE);
+        let text = fs::read(&file).map_err(|e| {
+            if e.kind() == std::io::ErrorKind::NotFound {
+                Error::usage(format!(
+                    "{} is not the run directory of a fit (it has no {SETTINGS_FILE})",
+                    path.display()
+                ))
+            } else {
+                Error::io(&file, e)
+            }
+        })?;
+        let record: OwnedSettingsRecord = serde_json::from_slice(&text)
+            .map_err(|e| Error::format(format!("{} is damaged: {e}", file.display())))?;
+        if record.format != RUN_FORMAT {
+            return Err(Error::format(format!(
+                "{} is of format '{}'; this build reads '{RUN_FORMAT}'",
+                file.display(),
+                record.format
+            )));
+        }
+        Ok((record.data, record.model, record.settings))
     }
 
     /// The directory.

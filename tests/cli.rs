@@ -30,8 +30,11 @@ fn write_parquet(path: &Path, columns: Vec<(&str, ArrayRef)>, row_group: usize) 
         .map(|(n, a)| Field::new(*n, a.data_type().clone(), true))
         .collect();
     let schema = Arc::new(Schema::new(fields));
-    let batch = RecordBatch::try_new(schema.clone(), columns.into_iter().map(|(_, a)| a).collect())
-        .expect("valid batch");
+    let batch = RecordBatch::try_new(
+        schema.clone(),
+        columns.into_iter().map(|(_, a)| a).collect(),
+    )
+    .expect("valid batch");
     let props = WriterProperties::builder()
         .set_max_row_group_row_count(Some(row_group))
         .build();
@@ -106,8 +109,16 @@ fn fit_predict_inspect_end_to_end() {
     let data = logistic_data(dir.path(), 3000);
     let model = dir.path().join("m.json");
     let o = outcore(&[
-        "fit", "--data", data.to_str().unwrap(), "--target", "label", "--features", "x1,x2",
-        "--out", model.to_str().unwrap(), "--json",
+        "fit",
+        "--data",
+        data.to_str().unwrap(),
+        "--target",
+        "label",
+        "--features",
+        "x1,x2",
+        "--out",
+        model.to_str().unwrap(),
+        "--json",
     ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     // --json: exactly one JSON object on stdout.
@@ -125,7 +136,16 @@ fn fit_predict_inspect_end_to_end() {
     assert!(m["standardization"]["x1"]["mean"].is_f64());
     assert!(m["standardization"]["x1"]["std"].is_f64());
     assert_eq!(m["penalty"]["ridge"], 0.0);
-    for key in ["stop", "objective", "gradient_max", "iterations", "passes", "seconds", "rows", "data_fingerprint"] {
+    for key in [
+        "stop",
+        "objective",
+        "gradient_max",
+        "iterations",
+        "passes",
+        "seconds",
+        "rows",
+        "data_fingerprint",
+    ] {
         assert!(!m["fit"][key].is_null(), "fit.{key} missing");
     }
     assert_eq!(m["fit"]["rows"], 3000);
@@ -137,13 +157,23 @@ fn fit_predict_inspect_end_to_end() {
     let run = dir.path().join("m.run");
     assert!(run.join("settings.json").is_file());
     let log = std::fs::read_to_string(run.join("log.jsonl")).expect("log");
-    assert_eq!(log.lines().count() as u64, m["fit"]["iterations"].as_u64().unwrap());
+    assert_eq!(
+        log.lines().count() as u64,
+        m["fit"]["iterations"].as_u64().unwrap()
+    );
 
     // Predict keeps row order and passes columns through.
     let scores = dir.path().join("scores.parquet");
     let o = outcore(&[
-        "predict", "--model", model.to_str().unwrap(), "--data", data.to_str().unwrap(),
-        "--out", scores.to_str().unwrap(), "--keep", "id",
+        "predict",
+        "--model",
+        model.to_str().unwrap(),
+        "--data",
+        data.to_str().unwrap(),
+        "--out",
+        scores.to_str().unwrap(),
+        "--keep",
+        "id",
     ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     let ids = read_f64(&scores, "id");
@@ -157,7 +187,11 @@ fn fit_predict_inspect_end_to_end() {
     let c2 = m["coefficients"]["x2"].as_f64().unwrap();
     for i in 0..3000 {
         let z = b + c1 * x1[i] + c2 * x2[i];
-        assert!((margin[i] - z).abs() < 1e-9, "row {i}: {} vs {z}", margin[i]);
+        assert!(
+            (margin[i] - z).abs() < 1e-9,
+            "row {i}: {} vs {z}",
+            margin[i]
+        );
         assert!((p[i] - 1.0 / (1.0 + (-z).exp())).abs() < 1e-12);
     }
 
@@ -165,7 +199,10 @@ fn fit_predict_inspect_end_to_end() {
     let o = outcore(&["inspect", model.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0));
     let text = String::from_utf8_lossy(&o.stdout);
-    assert!(text.contains("converged") && text.contains("x1") && text.contains("x2"), "{text}");
+    assert!(
+        text.contains("converged") && text.contains("x1") && text.contains("x2"),
+        "{text}"
+    );
 }
 
 #[test]
@@ -178,13 +215,24 @@ fn settings_file_with_flags_overriding() {
         "data = [\"train.parquet\"]\ntarget = \"label\"\nfeatures = [\"x1\", \"x2\"]\nridge = 0.5\nout = \"cfg.json\"\n",
     )
     .unwrap();
-    let o = outcore(&["fit", "--config", config.to_str().unwrap(), "--ridge", "0.25", "--quiet"]);
+    let o = outcore(&[
+        "fit",
+        "--config",
+        config.to_str().unwrap(),
+        "--ridge",
+        "0.25",
+        "--quiet",
+    ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     let m = read_json(&dir.path().join("cfg.json"));
     assert_eq!(m["penalty"]["ridge"], 0.25);
 
     // An unknown key is refused, naming the key and its line.
-    std::fs::write(&config, "data = [\"train.parquet\"]\ntarget = \"label\"\nridgee = 1\nout = \"x.json\"\n").unwrap();
+    std::fs::write(
+        &config,
+        "data = [\"train.parquet\"]\ntarget = \"label\"\nridgee = 1\nout = \"x.json\"\n",
+    )
+    .unwrap();
     let o = outcore(&["fit", "--config", config.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
     let e = stderr(&o);
@@ -198,8 +246,19 @@ fn a_budget_stop_is_exit_one_and_marked_in_the_model() {
     let data = logistic_data(dir.path(), 500);
     let model = dir.path().join("m.json");
     let o = outcore(&[
-        "fit", "--data", data.to_str().unwrap(), "--target", "label", "--features", "x1,x2",
-        "--out", model.to_str().unwrap(), "--max-passes", "3", "--tol", "1e-12",
+        "fit",
+        "--data",
+        data.to_str().unwrap(),
+        "--target",
+        "label",
+        "--features",
+        "x1,x2",
+        "--out",
+        model.to_str().unwrap(),
+        "--max-passes",
+        "3",
+        "--tol",
+        "1e-12",
     ]);
     assert_eq!(o.status.code(), Some(1), "{}", stderr(&o));
     let m = read_json(&model);
@@ -236,12 +295,28 @@ fn bad_input_exits_two_and_leaves_the_old_model_alone() {
     // A file that is not Parquet.
     let junk = dir.path().join("junk.parquet");
     std::fs::write(&junk, b"this is not parquet at all").unwrap();
-    let o = outcore(&["fit", "--data", junk.to_str().unwrap(), "--target", "label", "--out", m]);
+    let o = outcore(&[
+        "fit",
+        "--data",
+        junk.to_str().unwrap(),
+        "--target",
+        "label",
+        "--out",
+        m,
+    ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("junk.parquet"));
     assert_eq!(std::fs::read_to_string(&model).unwrap(), "precious");
     // --out in a directory that does not exist.
-    let o = outcore(&["fit", "--data", d, "--target", "label", "--out", "/nonexistent/dir/m.json"]);
+    let o = outcore(&[
+        "fit",
+        "--data",
+        d,
+        "--target",
+        "label",
+        "--out",
+        "/nonexistent/dir/m.json",
+    ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("does not exist"));
 }
@@ -253,16 +328,30 @@ fn nan_in_a_feature_is_named_with_its_row() {
     write_parquet(
         &path,
         vec![
-            ("x", Arc::new(Float64Array::from(vec![1.0, 2.0, f64::NAN, 4.0])) as ArrayRef),
+            (
+                "x",
+                Arc::new(Float64Array::from(vec![1.0, 2.0, f64::NAN, 4.0])) as ArrayRef,
+            ),
             ("y", Arc::new(Int64Array::from(vec![0, 1, 0, 1]))),
         ],
         10,
     );
     let out = dir.path().join("m.json");
-    let o = outcore(&["fit", "--data", path.to_str().unwrap(), "--target", "y", "--out", out.to_str().unwrap()]);
+    let o = outcore(&[
+        "fit",
+        "--data",
+        path.to_str().unwrap(),
+        "--target",
+        "y",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
     assert_eq!(o.status.code(), Some(2));
     let e = stderr(&o);
-    assert!(e.contains("'x'") && e.contains("NaN") && e.contains("row 3"), "{e}");
+    assert!(
+        e.contains("'x'") && e.contains("NaN") && e.contains("row 3"),
+        "{e}"
+    );
     assert!(!out.exists());
 }
 
@@ -271,7 +360,15 @@ fn nulls_error_by_default_and_mean_imputation_adds_an_indicator() {
     let dir = tempfile::tempdir().expect("tempdir");
     let path = dir.path().join("nulls.parquet");
     let n = 400;
-    let x: Vec<Option<f64>> = (0..n).map(|i| if i % 10 == 3 { None } else { Some((i % 17) as f64) }).collect();
+    let x: Vec<Option<f64>> = (0..n)
+        .map(|i| {
+            if i % 10 == 3 {
+                None
+            } else {
+                Some((i % 17) as f64)
+            }
+        })
+        .collect();
     let y: Vec<i64> = (0..n).map(|i| ((i * 7) % 3 == 0) as i64).collect();
     let label: Vec<&str> = (0..n).map(|i| ["a", "b", "c"][i % 3]).collect();
     write_parquet(
@@ -285,14 +382,38 @@ fn nulls_error_by_default_and_mean_imputation_adds_an_indicator() {
     );
     let out = dir.path().join("m.json");
     let p = path.to_str().unwrap();
-    let o = outcore(&["fit", "--data", p, "--target", "y", "--out", out.to_str().unwrap()]);
+    let o = outcore(&[
+        "fit",
+        "--data",
+        p,
+        "--target",
+        "y",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
     assert_eq!(o.status.code(), Some(2));
     let e = stderr(&o);
     assert!(e.contains("40 null") && e.contains("row 4"), "{e}");
-    let o = outcore(&["fit", "--data", p, "--target", "y", "--missing", "mean", "--ridge", "1e-3", "--out", out.to_str().unwrap()]);
+    let o = outcore(&[
+        "fit",
+        "--data",
+        p,
+        "--target",
+        "y",
+        "--missing",
+        "mean",
+        "--ridge",
+        "1e-3",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     let m = read_json(&out);
-    assert!(m["coefficients"]["x.missing"].is_f64(), "{}", m["coefficients"]);
+    assert!(
+        m["coefficients"]["x.missing"].is_f64(),
+        "{}",
+        m["coefficients"]
+    );
 }
 
 #[test]
@@ -304,7 +425,13 @@ fn softmax_with_string_classes_predicts_a_probability_per_class() {
     let label: Vec<&str> = (0..n)
         .map(|i| {
             let v = (i % 30) as f64 / 3.0 + ((i * 37) % 11) as f64 / 3.0;
-            if v < 4.0 { "low" } else if v < 8.0 { "mid" } else { "high" }
+            if v < 4.0 {
+                "low"
+            } else if v < 8.0 {
+                "mid"
+            } else {
+                "high"
+            }
         })
         .collect();
     write_parquet(
@@ -317,12 +444,32 @@ fn softmax_with_string_classes_predicts_a_probability_per_class() {
     );
     let out = dir.path().join("m.json");
     let p = path.to_str().unwrap();
-    let o = outcore(&["fit", "--data", p, "--target", "band", "--loss", "softmax", "--ridge", "1e-3", "--out", out.to_str().unwrap()]);
+    let o = outcore(&[
+        "fit",
+        "--data",
+        p,
+        "--target",
+        "band",
+        "--loss",
+        "softmax",
+        "--ridge",
+        "1e-3",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     let m = read_json(&out);
     assert_eq!(m["classes"], serde_json::json!(["high", "low", "mid"]));
     let scores = dir.path().join("p.parquet");
-    let o = outcore(&["predict", "--model", out.to_str().unwrap(), "--data", p, "--out", scores.to_str().unwrap()]);
+    let o = outcore(&[
+        "predict",
+        "--model",
+        out.to_str().unwrap(),
+        "--data",
+        p,
+        "--out",
+        scores.to_str().unwrap(),
+    ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     let a = read_f64(&scores, "probability_high");
     let b = read_f64(&scores, "probability_low");
@@ -332,8 +479,20 @@ fn softmax_with_string_classes_predicts_a_probability_per_class() {
     }
     // Predicting on data that lack the feature names the column.
     let other = dir.path().join("o.parquet");
-    write_parquet(&other, vec![("z", Arc::new(Float64Array::from(vec![1.0])) as ArrayRef)], 10);
-    let o = outcore(&["predict", "--model", out.to_str().unwrap(), "--data", other.to_str().unwrap(), "--out", scores.to_str().unwrap()]);
+    write_parquet(
+        &other,
+        vec![("z", Arc::new(Float64Array::from(vec![1.0])) as ArrayRef)],
+        10,
+    );
+    let o = outcore(&[
+        "predict",
+        "--model",
+        out.to_str().unwrap(),
+        "--data",
+        other.to_str().unwrap(),
+        "--out",
+        scores.to_str().unwrap(),
+    ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("'x'"), "{}", stderr(&o));
 }
@@ -344,9 +503,21 @@ fn a_damaged_model_file_is_refused() {
     let data = logistic_data(dir.path(), 100);
     let model = dir.path().join("bad.json");
     let scores = dir.path().join("s.parquet");
-    for text in ["{", "{\"format\": \"outcore-model/9\"}", "{\"format\": \"outcore-model/1\", \"loss\": 3}"] {
+    for text in [
+        "{",
+        "{\"format\": \"outcore-model/9\"}",
+        "{\"format\": \"outcore-model/1\", \"loss\": 3}",
+    ] {
         std::fs::write(&model, text).unwrap();
-        let o = outcore(&["predict", "--model", model.to_str().unwrap(), "--data", data.to_str().unwrap(), "--out", scores.to_str().unwrap()]);
+        let o = outcore(&[
+            "predict",
+            "--model",
+            model.to_str().unwrap(),
+            "--data",
+            data.to_str().unwrap(),
+            "--out",
+            scores.to_str().unwrap(),
+        ]);
         assert_eq!(o.status.code(), Some(2), "{text}");
         assert!(stderr(&o).contains("bad.json"));
         assert!(!scores.exists());

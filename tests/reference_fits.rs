@@ -667,7 +667,10 @@ fn one_file_equals_three_files() {
         .file("raw.parquet")
         .tol(1e-13)
         .extra(&["--threads", "2", "--shards", "2"]);
-    let one = spec.run_on(&dir.path().join("one").tap_mkdir(), &[src.clone()]);
+    let one = spec.run_on(
+        &dir.path().join("one").tap_mkdir(),
+        std::slice::from_ref(&src),
+    );
     let three = spec.run_on(&dir.path().join("three").tap_mkdir(), &files);
     assert_reached_optimum(&one, "one file");
     assert_reached_optimum(&three, "three files");

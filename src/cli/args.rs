@@ -17,7 +17,9 @@ pub struct Cli {
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Fit a model on Parquet data and write the model file.
-    Fit(FitArgs),
+    Fit(Box<FitArgs>),
+    /// Continue a fit from the checkpoint in its run directory.
+    Resume(ResumeArgs),
     /// Score Parquet data with a model and write the scores as Parquet.
     Predict(PredictArgs),
     /// Show a model file as a readable summary.
@@ -94,6 +96,29 @@ pub struct FitArgs {
     #[arg(long, value_name = "MODEL.json")]
     pub out: Option<PathBuf>,
     /// Print one JSON summary object on stdout at the end (progress stays on stderr).
+    #[arg(long)]
+    pub json: bool,
+    /// Print no progress lines.
+    #[arg(long)]
+    pub quiet: bool,
+}
+
+/// Flags of `outcore resume`. Only what does not change the objective can be changed.
+#[derive(Debug, Args)]
+pub struct ResumeArgs {
+    /// The run directory of the fit (holds `settings.json` and `checkpoint`).
+    #[arg(value_name = "DIR")]
+    pub dir: PathBuf,
+    /// New total pass budget (the passes already done count).
+    #[arg(long, value_name = "N")]
+    pub max_passes: Option<u64>,
+    /// New wall-clock budget in seconds for the whole fit.
+    #[arg(long, value_name = "S", allow_negative_numbers = true)]
+    pub max_seconds: Option<f64>,
+    /// Threads for the passes (the shard count stays as recorded).
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
+    /// Print one JSON summary object on stdout at the end.
     #[arg(long)]
     pub json: bool,
     /// Print no progress lines.

@@ -1,122 +1,254 @@
 //! `outcore fit`, `predict` and `demo`.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::AtomicBool;
+use std::sync::Arc;
+
+use signal_hook::consts::{SIGINT, SIGTERM};
 
 use serde_json::json;
 
 use outcore::atomic;
 use outcore::demo::{write_demo, DemoOptions};
-use outcore::fit::{self, FitEvent, FitOutcome};
+use outcore::fit::{
+    self, Control, FitEvent, FitOutcome, FitSettings, ResumeOverrides, ResumeSource,
+};
 use outcore::model::Model;
 use outcore::predict;
 use outcore::run_dir::RunDir;
 use outcore::source::Source;
-use outcore::{Error, Result};
+use outcore::{Error, ErrorKind, Result};
 
-use super::args::{DemoArgs, FitArgs, PredictArgs};
+use super::args::{DemoArgs, FitArgs, PredictArgs, ResumeArgs};
 use super::config::{self, FitPlan};
 use super::output;
-use super::{EXIT_NOT_CONVERGED, EXIT_OK};
+use super::{EXIT_INTERRUPTED, EXIT_NOT_CONVERGED, EXIT_OK};
+
+/// Installs SIGINT/SIGTERM handling: the first signal sets the returned flag (the fit
+/// checkpoints and stops at the next block boundary); a second one exits at once.
+fn cancel_on_signals() -> Option<Arc<AtomicBool>> {
+    let flag = Arc::new(AtomicBool::new(false));
+    for signal in [SIGINT, SIGTERM] {
+        // The conditional exit is registered first so that it only fires on a second signal.
+        if signal_hook::flag::register_conditional_shutdown(signal, EXIT_INTERRUPTED, flag.clone())
+            .is_err()
+            || signal_hook::flag::register(signal, flag.clone()).is_err()
+        {
+            output::warning("cannot install the signal handler; Ctrl-C will stop the fit without a final checkpoint");
+            return None;
+        }
+    }
+    Some(flag)
+}
+
+fn absolute(path: &Path) -> PathBuf {
+    std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf())
+}
+
+/// Printing and logging of fit events, shared by `fit` and `resume`.
+struct Reporter<'a> {
+    quiet: bool,
+    run: &'a Path,
+    run_dir: Option<RunDir>,
+    run_error: Option<Error>,
+    settings: &'a FitSettings,
+    data: &'a [String],
+    model: &'a Path,
+}
+
+impl Reporter<'_> {
+    fn event(&mut self, event: FitEvent<'_>) {
+        match event {
+            FitEvent::Statistics {
+                summary,
+                features,
+                seconds,
+            } => {
+                if !self.quiet {
+                    output::note(&format!(
+                        "read {} rows ({} features, weight sum {}) in {seconds:.2}s; fitting {} with {} shards on {} threads",
+                        summary.rows,
+                        features,
+                        summary.weight_sum,
+                        self.settings.request.loss.as_str(),
+                        self.settings.shard_count(),
+                        self.settings.threads
+                    ));
+                    if summary.skipped_target > 0 {
+                        output::note(&format!(
+                            "skipped {} rows with a null target",
+                            summary.skipped_target
+                        ));
+                    }
+                }
+                match RunDir::create(self.run, self.data, self.model, self.settings) {
+                    Ok(d) => self.run_dir = Some(d),
+                    Err(e) => self.run_error = Some(e),
+                }
+            }
+            FitEvent::Resumed { iteration, passes } => {
+                if !self.quiet {
+                    output::note(&format!(
+                        "resuming after iteration {iteration} ({passes} passes done) on {} threads",
+                        self.settings.threads
+                    ));
+                }
+                match RunDir::reopen(self.run, iteration) {
+                    Ok(d) => self.run_dir = Some(d),
+                    Err(e) => self.run_error = Some(e),
+                }
+            }
+            FitEvent::Warning(w) => output::warning(w),
+            FitEvent::Iteration(r) => {
+                if !self.quiet {
+                    output::note(&format!(
+                        "iter {:>4}  passes {:>4}  objective {:.12e}  max|g| {:.3e}  step {:.3e}  {:.2}s",
+                        r.iteration, r.passes, r.objective, r.gradient_max, r.step, r.seconds
+                    ));
+                }
+                if let Some(d) = self.run_dir.as_mut() {
+                    if let Err(e) = d.log(r) {
+                        self.run_error.get_or_insert(e);
+                    }
+                }
+            }
+        }
+    }
+
+    /// Writes the model and prints the summary; the exit status.
+    fn finish(self, outcome: Result<FitOutcome>, json: bool) -> Result<i32> {
+        let outcome = match outcome {
+            Err(e) if e.kind() == ErrorKind::Interrupted => {
+                output::note(&format!(
+                    "interrupted; the last checkpoint is in {}. Continue with: outcore resume {}",
+                    self.run.display(),
+                    self.run.display()
+                ));
+                return Ok(EXIT_INTERRUPTED);
+            }
+            other => other?,
+        };
+        if let Some(e) = self.run_error {
+            return Err(e);
+        }
+        let FitOutcome { model, stop, .. } = outcome;
+        model.save(self.model)?;
+        let f = &model.fit;
+        if !self.quiet {
+            let verdict = if stop.is_converged() {
+                "converged"
+            } else {
+                "stopped before converging"
+            };
+            output::note(&format!(
+                "{verdict} ({}) after {} iterations, {} passes, {:.2}s; objective {:.12e}, max|g| {:.3e}",
+                f.stop, f.iterations, f.passes, f.seconds, f.objective, f.gradient_max
+            ));
+            if let Some(m) = &f.message {
+                output::note(m);
+            }
+            output::note(&format!("model written to {}", self.model.display()));
+        }
+        if json {
+            let summary = json!({
+                "model": self.model,
+                "run": self.run,
+                "stop": f.stop,
+                "converged": stop.is_converged(),
+                "message": f.message,
+                "objective": f.objective,
+                "gradient_max": f.gradient_max,
+                "iterations": f.iterations,
+                "passes": f.passes,
+                "seconds": f.seconds,
+                "rows": f.rows,
+                "features": model.features.len(),
+            });
+            output::line(&summary.to_string());
+        }
+        Ok(if stop.is_converged() {
+            EXIT_OK
+        } else {
+            EXIT_NOT_CONVERGED
+        })
+    }
+}
 
 /// `outcore fit`.
 pub fn run(args: FitArgs) -> Result<i32> {
-    let plan = config::resolve(&args)?;
+    let mut plan = config::resolve(&args)?;
     atomic::check_output(&plan.out, "model")?;
-    let quiet = args.quiet;
-    let mut run_dir: Option<RunDir> = None;
-    let mut run_error: Option<Error> = None;
+    plan.out = absolute(&plan.out);
+    plan.run = absolute(&plan.run);
+    if plan.run.exists() && !plan.run.is_dir() {
+        return Err(Error::usage(format!(
+            "the run directory {} is a file; name a directory with --run",
+            plan.run.display()
+        )));
+    }
+    plan.data = plan
+        .data
+        .iter()
+        .map(|d| absolute(Path::new(d)).to_string_lossy().into_owned())
+        .collect();
     let FitPlan {
         data,
         settings,
         out,
         run,
     } = &plan;
-    let outcome = fit::fit(data, settings, &mut |event| match event {
-        FitEvent::Statistics {
-            summary,
-            features,
-            seconds,
-        } => {
-            if !quiet {
-                output::note(&format!(
-                    "read {} rows ({} features, weight sum {}) in {seconds:.2}s; fitting {} with {} shards on {} threads",
-                    summary.rows,
-                    features,
-                    summary.weight_sum,
-                    settings.request.loss.as_str(),
-                    settings.shard_count(),
-                    settings.threads
-                ));
-                if summary.skipped_target > 0 {
-                    output::note(&format!(
-                        "skipped {} rows with a null target",
-                        summary.skipped_target
-                    ));
-                }
-            }
-            match RunDir::create(run, data, out, settings) {
-                Ok(d) => run_dir = Some(d),
-                Err(e) => run_error = Some(e),
-            }
-        }
-        FitEvent::Warning(w) => output::warning(w),
-        FitEvent::Iteration(r) => {
-            if !quiet {
-                output::note(&format!(
-                    "iter {:>4}  passes {:>4}  objective {:.12e}  max|g| {:.3e}  step {:.3e}  {:.2}s",
-                    r.iteration, r.passes, r.objective, r.gradient_max, r.step, r.seconds
-                ));
-            }
-            if let Some(d) = run_dir.as_mut() {
-                if let Err(e) = d.log(r) {
-                    run_error.get_or_insert(e);
-                }
-            }
-        }
+    let control = Control {
+        cancel: cancel_on_signals(),
+        checkpoint_dir: Some(run.clone()),
+    };
+    let mut reporter = Reporter {
+        quiet: args.quiet,
+        run,
+        run_dir: None,
+        run_error: None,
+        settings,
+        data,
+        model: out,
+    };
+    let outcome = fit::fit(data, settings, &control, &mut |e| reporter.event(e));
+    reporter.finish(outcome, args.json)
+}
+
+/// `outcore resume`.
+pub fn resume(args: ResumeArgs) -> Result<i32> {
+    let run = absolute(&args.dir);
+    let (data, model, settings) = RunDir::read_settings(&run)?;
+    atomic::check_output(&model, "model")?;
+    let overrides = ResumeOverrides {
+        max_passes: args.max_passes,
+        max_seconds: args.max_seconds,
+        threads: args.threads,
+    };
+    let control = Control {
+        cancel: cancel_on_signals(),
+        checkpoint_dir: Some(run.clone()),
+    };
+    let mut shown = settings.clone();
+    if let Some(t) = args.threads {
+        shown.threads = t;
+    }
+    let started_with = ResumeSource {
+        data: data.clone(),
+        settings,
+    };
+    let mut reporter = Reporter {
+        quiet: args.quiet,
+        run: &run,
+        run_dir: None,
+        run_error: None,
+        settings: &shown,
+        data: &data,
+        model: &model,
+    };
+    let outcome = fit::resume(&run, &started_with, &overrides, &control, &mut |e| {
+        reporter.event(e)
     });
-    if let Some(e) = run_error {
-        return Err(e);
-    }
-    let FitOutcome { model, stop, .. } = outcome?;
-    model.save(out)?;
-    let f = &model.fit;
-    if !quiet {
-        let verdict = if stop.is_converged() {
-            "converged"
-        } else {
-            "stopped before converging"
-        };
-        output::note(&format!(
-            "{verdict} ({}) after {} iterations, {} passes, {:.2}s; objective {:.12e}, max|g| {:.3e}",
-            f.stop, f.iterations, f.passes, f.seconds, f.objective, f.gradient_max
-        ));
-        if let Some(m) = &f.message {
-            output::note(m);
-        }
-        output::note(&format!("model written to {}", out.display()));
-    }
-    if args.json {
-        let summary = json!({
-            "model": out,
-            "run": run,
-            "stop": f.stop,
-            "converged": stop.is_converged(),
-            "message": f.message,
-            "objective": f.objective,
-            "gradient_max": f.gradient_max,
-            "iterations": f.iterations,
-            "passes": f.passes,
-            "seconds": f.seconds,
-            "rows": f.rows,
-            "features": model.features.len(),
-        });
-        output::line(&summary.to_string());
-    }
-    Ok(if stop.is_converged() {
-        EXIT_OK
-    } else {
-        EXIT_NOT_CONVERGED
-    })
+    reporter.finish(outcome, args.json)
 }
 
 /// `outcore predict`.

@@ -39,7 +39,8 @@ pub fn main() -> i32 {
         }
     };
     let outcome = match cli.command {
-        Command::Fit(args) => fit::run(args),
+        Command::Fit(args) => fit::run(*args),
+        Command::Resume(args) => fit::resume(args),
         Command::Predict(args) => fit::predict(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Demo(args) => fit::demo(args),

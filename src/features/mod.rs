@@ -579,18 +579,16 @@ impl Design {
                     )));
                 }
             }
-            Loss::Softmax => {
-                if summary.classes.len() < 2 {
-                    return Err(Error::data(format!(
-                        "the target '{}' has only one class ({}); softmax needs at least two",
-                        request.target,
-                        summary
-                            .classes
-                            .first()
-                            .map(String::as_str)
-                            .unwrap_or("none")
-                    )));
-                }
+            Loss::Softmax if summary.classes.len() < 2 => {
+                return Err(Error::data(format!(
+                    "the target '{}' has only one class ({}); softmax needs at least two",
+                    request.target,
+                    summary
+                        .classes
+                        .first()
+                        .map(String::as_str)
+                        .unwrap_or("none")
+                )));
             }
             _ => {}
         }
@@ -603,7 +601,7 @@ impl Design {
                 ));
                 continue;
             }
-            if !(std > 0.0) || std <= 1e-12 * m.mean.abs() {
+            if std.is_nan() || std <= 1e-12 * m.mean.abs() {
                 warnings.push(format!(
                     "the feature '{name}' is constant ({}) in the rows used; it is left out",
                     m.mean
