@@ -8,7 +8,8 @@
 //!
 //! **Invariant:** a pass's result does not depend on the thread count or on scheduling.
 
-use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
+use std::time::{Duration, Instant};
 use std::sync::{Arc, Mutex};
 
 use crate::source::{BatchAt, Segment, Source};
@@ -37,6 +38,31 @@ impl PassPlan {
     }
 }
 
+/// Where a shard starts in a pass, or where it stood when a snapshot was taken.
+#[derive(Debug, Clone, PartialEq)]
+pub enum ShardStart<A> {
+    /// From its first block.
+    Fresh,
+    /// Its first `blocks` blocks are already summed into `acc`.
+    Partial {
+        /// Blocks already summed, in data order.
+        blocks: u64,
+        /// The shard's accumulator after them.
+        acc: A,
+    },
+    /// The whole shard is summed into the accumulator.
+    Done(A),
+}
+
+/// Periodic snapshots of a long pass, taken at block boundaries: every `every`, and once
+/// more when the pass is cancelled, `save` receives the state of every shard.
+pub struct Snapshots<'a, A> {
+    /// Time between snapshots.
+    pub every: Duration,
+    /// Receives one entry per shard, in shard order.
+    pub save: &'a (dyn Fn(Vec<ShardStart<A>>) -> Result<()> + Sync),
+}
+
 /// Runs `fold` over every block of every shard and returns the shard accumulators in
 /// shard order. `init` makes a fresh accumulator for a shard; `fold` adds one block
 /// (decoded with only `columns`) to it. On error, the error of the lowest failing shard
@@ -49,39 +75,144 @@ pub fn run<A, I, F>(
     fold: F,
 ) -> Result<Vec<A>>
 where
-    A: Send,
+    A: Send + Clone,
+    I: Fn() -> A + Sync,
+    F: Fn(&mut A, BatchAt) -> Result<()> + Sync,
+{
+    run_resumable(source, plan, columns, init, fold, Vec::new(), None)
+}
+
+/// The segments of `segments` after their first `skip` blocks.
+fn skip_blocks(segments: &[Segment], mut skip: u64, block_rows: u64) -> Vec<Segment> {
+    let mut out = Vec::with_capacity(segments.len());
+    for seg in segments {
+        let blocks = seg.rows.div_ceil(block_rows);
+        if skip >= blocks {
+            skip -= blocks;
+            continue;
+        }
+        let rows = skip * block_rows;
+        out.push(Segment {
+            first_row: seg.first_row + rows,
+            rows: seg.rows - rows,
+            ..*seg
+        });
+        skip = 0;
+    }
+    out
+}
+
+/// What a worker has published about a shard for snapshots.
+enum Published<A> {
+    /// Not taken by a worker yet.
+    Waiting,
+    /// Taken; the last state published (for generation `.0`).
+    Running(u64, Option<(u64, A)>),
+    /// Summed.
+    Done(A),
+}
+
+/// As [`run`], starting each shard where `starts` says (empty: every shard fresh), and
+/// taking [`Snapshots`] when asked. The result is bitwise the same as an uninterrupted
+/// [`run`]: a shard continued from a snapshot folds the same blocks in the same order
+/// into the same accumulator.
+pub fn run_resumable<A, I, F>(
+    source: &Source,
+    plan: &PassPlan,
+    columns: &[&str],
+    init: I,
+    fold: F,
+    starts: Vec<ShardStart<A>>,
+    snapshots: Option<Snapshots<'_, A>>,
+) -> Result<Vec<A>>
+where
+    A: Send + Clone,
     I: Fn() -> A + Sync,
     F: Fn(&mut A, BatchAt) -> Result<()> + Sync,
 {
     let n = plan.shards.len();
+    if !starts.is_empty() && starts.len() != n {
+        return Err(Error::internal(format!(
+            "a pass was resumed with {} shard states for {n} shards",
+            starts.len()
+        )));
+    }
+    let starts: Vec<Mutex<Option<ShardStart<A>>>> = if starts.is_empty() {
+        (0..n).map(|_| Mutex::new(Some(ShardStart::Fresh))).collect()
+    } else {
+        starts.into_iter().map(|s| Mutex::new(Some(s))).collect()
+    };
+    let block_rows = source.block_rows() as u64;
     let next = AtomicUsize::new(0);
     let failed = AtomicBool::new(false);
+    let finished = AtomicUsize::new(0);
+    let generation = AtomicU64::new(0);
+    let want_snapshots = snapshots.is_some();
+    let published: Vec<Mutex<Published<A>>> = (0..n).map(|_| Mutex::new(Published::Waiting)).collect();
     let slots: Vec<Mutex<Option<Result<A>>>> = (0..n).map(|_| Mutex::new(None)).collect();
-    let threads = plan.threads.min(n).max(1);
+    let cancelled = || plan.cancel.as_ref().is_some_and(|c| c.load(Ordering::Relaxed));
+    let publish = |shard: usize, value: Published<A>| {
+        if let Ok(mut p) = published[shard].lock() {
+            *p = value;
+        }
+    };
     let work = || loop {
         let shard = next.fetch_add(1, Ordering::Relaxed);
         if shard >= n || failed.load(Ordering::Relaxed) {
             break;
         }
-        let mut acc = init();
+        let start = starts[shard].lock().ok().and_then(|mut s| s.take()).unwrap_or(ShardStart::Fresh);
+        let (mut acc, skip) = match start {
+            ShardStart::Fresh => (init(), 0),
+            ShardStart::Partial { blocks, acc } => (acc, blocks),
+            ShardStart::Done(acc) => {
+                if want_snapshots {
+                    publish(shard, Published::Done(acc.clone()));
+                }
+                if let Ok(mut slot) = slots[shard].lock() {
+                    *slot = Some(Ok(acc));
+                }
+                finished.fetch_add(1, Ordering::Relaxed);
+                continue;
+            }
+        };
+        if want_snapshots {
+            publish(shard, Published::Running(0, None));
+        }
+        let mut blocks_done = skip;
+        let mut seen = 0u64;
         let mut outcome = Ok(());
-        for segment in &plan.shards[shard] {
+        let segments = skip_blocks(&plan.shards[shard], skip, block_rows);
+        for segment in &segments {
             outcome = source.read_segment(segment, columns, |batch| {
-                if plan
-                    .cancel
-                    .as_ref()
-                    .is_some_and(|c| c.load(Ordering::Relaxed))
-                {
+                if cancelled() {
+                    if want_snapshots {
+                        publish(shard, Published::Running(u64::MAX, Some((blocks_done, acc.clone()))));
+                    }
                     return Err(Error::interrupted());
                 }
-                fold(&mut acc, batch)
+                fold(&mut acc, batch)?;
+                blocks_done += 1;
+                if want_snapshots {
+                    let g = generation.load(Ordering::Acquire);
+                    if g > seen {
+                        seen = g;
+                        publish(shard, Published::Running(g, Some((blocks_done, acc.clone()))));
+                    }
+                }
+                Ok(())
             });
             if outcome.is_err() || failed.load(Ordering::Relaxed) {
                 break;
             }
         }
         let result = match outcome {
-            Ok(()) => Ok(acc),
+            Ok(()) => {
+                if want_snapshots {
+                    publish(shard, Published::Done(acc.clone()));
+                }
+                Ok(acc)
+            }
             Err(e) => {
                 failed.store(true, Ordering::Relaxed);
                 Err(e)
@@ -90,16 +221,66 @@ where
         if let Ok(mut slot) = slots[shard].lock() {
             *slot = Some(result);
         }
+        finished.fetch_add(1, Ordering::Relaxed);
     };
-    if threads == 1 {
+    // The state of every shard as published; `None` while a running shard has not
+    // answered generation `g` yet.
+    let collect = |g: u64| -> Option<Vec<ShardStart<A>>> {
+        let mut out = Vec::with_capacity(n);
+        for p in &published {
+            let p = p.lock().ok()?;
+            out.push(match &*p {
+                Published::Waiting => ShardStart::Fresh,
+                Published::Done(acc) => ShardStart::Done(acc.clone()),
+                Published::Running(pg, state) if *pg >= g => match state {
+                    Some((blocks, acc)) => ShardStart::Partial { blocks: *blocks, acc: acc.clone() },
+                    None => ShardStart::Fresh,
+                },
+                Published::Running(..) => return None,
+            });
+        }
+        Some(out)
+    };
+    let mut snapshot_error = None;
+    let threads = plan.threads.min(n).max(1);
+    if threads == 1 && snapshots.is_none() {
         work();
     } else {
         crossbeam::thread::scope(|scope| {
             for _ in 0..threads {
                 scope.spawn(|_| work());
             }
+            if let Some(snap) = &snapshots {
+                let mut last = Instant::now();
+                let tick = snap.every.min(Duration::from_millis(20)).max(Duration::from_millis(1));
+                while finished.load(Ordering::Relaxed) < n && !failed.load(Ordering::Relaxed) {
+                    std::thread::sleep(tick);
+                    if last.elapsed() < snap.every {
+                        continue;
+                    }
+                    let g = generation.fetch_add(1, Ordering::AcqRel) + 1;
+                    let states = loop {
+                        if let Some(states) = collect(g) {
+                            break Some(states);
+                        }
+                        if finished.load(Ordering::Relaxed) >= n || failed.load(Ordering::Relaxed) {
+                            break None;
+                        }
+                        std::thread::sleep(Duration::from_millis(1));
+                    };
+                    if let Some(states) = states {
+                        if let Err(e) = (snap.save)(states) {
+                            snapshot_error.get_or_insert(e);
+                        }
+                    }
+                    last = Instant::now();
+                }
+            }
         })
         .map_err(|_| Error::internal("a worker thread of the pass panicked"))?;
+    }
+    if let Some(e) = snapshot_error {
+        return Err(e);
     }
     let mut out = Vec::with_capacity(n);
     let mut first_error = None;
@@ -118,7 +299,15 @@ where
         }
     }
     match first_error {
-        Some(e) => Err(e),
+        Some(e) => {
+            // A cancelled pass leaves one last snapshot so that its work is kept.
+            if e.kind() == crate::ErrorKind::Interrupted {
+                if let (Some(snap), Some(states)) = (&snapshots, collect(0)) {
+                    (snap.save)(states)?;
+                }
+            }
+            Err(e)
+        }
         None if out.len() == n => Ok(out),
         None => Err(Error::internal("a shard of the pass was not run")),
     }

@@ -343,6 +343,7 @@ fn numeric_label(v: f64) -> String {
 }
 
 /// Per-shard accumulator of the statistics pass.
+#[derive(Clone)]
 struct StatsAcc {
     rows: u64,
     skipped: u64,

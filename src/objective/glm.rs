@@ -1,9 +1,12 @@
 //! The GLM objective over streamed data: one pass per evaluation.
 
+use std::time::Duration;
+
+use crate::checkpoint::{PartialPass, ShardProgress};
 use crate::features::{Block, Design};
 use crate::objective::loss::{self, Loss, MAX_EXP_MARGIN};
 use crate::optim::Objective;
-use crate::pass::{self, PassPlan};
+use crate::pass::{self, PassPlan, ShardStart, Snapshots};
 use crate::source::Source;
 use crate::Result;
 
@@ -70,7 +73,7 @@ impl Layout {
 }
 
 /// Per-shard sums of one evaluation pass.
-#[derive(Debug, Clone)]
+#[derive(Debug)]
 struct PassSums {
     loss: f64,
     grad: Vec<f64>,
@@ -80,6 +83,66 @@ struct PassSums {
     overflow: Option<String>,
     block: Block,
     z: Vec<f64>,
+}
+
+/// A copy of the sums only: the scratch buffers are not part of a shard's state.
+impl Clone for PassSums {
+    fn clone(&self) -> Self {
+        PassSums {
+            loss: self.loss,
+            grad: self.grad.clone(),
+            wrong: self.wrong,
+            overflow: self.overflow.clone(),
+            block: Block::default(),
+            z: Vec::new(),
+        }
+    }
+}
+
+impl PassSums {
+    fn empty(dim: usize) -> PassSums {
+        PassSums {
+            loss: 0.0,
+            grad: vec![0.0; dim],
+            wrong: 0.0,
+            overflow: None,
+            block: Block::default(),
+            z: Vec::new(),
+        }
+    }
+
+    /// The sums as saved in a checkpoint: `[loss, wrong, overflowed, gradient…]`.
+    fn to_vec(&self) -> Vec<f64> {
+        let mut v = Vec::with_capacity(3 + self.grad.len());
+        v.push(self.loss);
+        v.push(self.wrong);
+        v.push(if self.overflow.is_some() { 1.0 } else { 0.0 });
+        v.extend_from_slice(&self.grad);
+        v
+    }
+
+    fn from_vec(v: &[f64], dim: usize) -> Option<PassSums> {
+        if v.len() != 3 + dim {
+            return None;
+        }
+        let mut sums = PassSums::empty(dim);
+        sums.loss = v[0];
+        sums.wrong = v[1];
+        if v[2] != 0.0 {
+            sums.overflow = Some("a row read before the fit was resumed".to_string());
+        }
+        sums.grad.copy_from_slice(&v[3..]);
+        Some(sums)
+    }
+}
+
+/// Checkpoints taken inside long passes: every `every`, the partial sums of the pass go
+/// to `save`.
+pub struct MidPassCheckpoints<'a> {
+    /// Time between checkpoints inside a pass.
+    pub every: Duration,
+    /// Saves a partial pass (with the last accepted optimizer state).
+    pub save: &'a (dyn Fn(PartialPass) -> Result<()> + Sync),
 }
 
 /// What the last evaluation saw besides the value and gradient.
@@ -105,6 +168,8 @@ pub struct GlmObjective<'a> {
     weight_sum: f64,
     passes: u64,
     last: Option<EvalExtras>,
+    mid_pass: Option<MidPassCheckpoints<'a>>,
+    resume_from: Option<PartialPass>,
 }
 
 impl<'a> GlmObjective<'a> {
@@ -126,7 +191,53 @@ impl<'a> GlmObjective<'a> {
             weight_sum,
             passes: 0,
             last: None,
+            mid_pass: None,
+            resume_from: None,
         }
+    }
+
+    /// Takes checkpoints inside long passes.
+    pub fn with_mid_pass_checkpoints(mut self, mid_pass: MidPassCheckpoints<'a>) -> Self {
+        self.mid_pass = Some(mid_pass);
+        self
+    }
+
+    /// Continues the saved partial pass when its point is evaluated again.
+    pub fn resume_pass(&mut self, partial: PartialPass) {
+        self.resume_from = Some(partial);
+    }
+
+    /// Shard states to start the pass at `x` from: those of the saved partial pass when
+    /// it evaluated exactly `x`, else every shard fresh.
+    fn starts_for(&mut self, x: &[f64]) -> Vec<ShardStart<PassSums>> {
+        let dim = self.layout.dim();
+        let matches = self.resume_from.as_ref().is_some_and(|p| {
+            p.point.len() == x.len() && p.point.iter().zip(x).all(|(a, b)| a.to_bits() == b.to_bits())
+        });
+        if !matches {
+            return Vec::new();
+        }
+        let Some(partial) = self.resume_from.take() else {
+            return Vec::new();
+        };
+        let mut starts = Vec::with_capacity(partial.shards.len());
+        for shard in &partial.shards {
+            let start = match shard {
+                ShardProgress::NotStarted => Some(ShardStart::Fresh),
+                ShardProgress::Partial { blocks, sums } => {
+                    PassSums::from_vec(sums, dim).map(|acc| ShardStart::Partial { blocks: *blocks, acc })
+                }
+                ShardProgress::Done { sums } => PassSums::from_vec(sums, dim).map(ShardStart::Done),
+            };
+            match start {
+                Some(s) => starts.push(s),
+                None => return Vec::new(),
+            }
+        }
+        if starts.len() != self.plan.shards.len() {
+            return Vec::new();
+        }
+        starts
     }
 
     /// Evaluation passes made so far.
@@ -155,18 +266,36 @@ impl Objective for GlmObjective<'_> {
         let design = self.design;
         let source = self.source;
         let columns = design.training_columns();
-        let shards = pass::run(
+        let starts = self.starts_for(x);
+        let save_partial = |states: Vec<ShardStart<PassSums>>| -> Result<()> {
+            let Some(mid) = &self.mid_pass else {
+                return Ok(());
+            };
+            let shards = states
+                .iter()
+                .map(|s| match s {
+                    ShardStart::Fresh => ShardProgress::NotStarted,
+                    ShardStart::Partial { blocks, acc } => ShardProgress::Partial {
+                        blocks: *blocks,
+                        sums: acc.to_vec(),
+                    },
+                    ShardStart::Done(acc) => ShardProgress::Done { sums: acc.to_vec() },
+                })
+                .collect();
+            (mid.save)(PartialPass {
+                point: x.to_vec(),
+                shards,
+            })
+        };
+        let snapshots = self.mid_pass.as_ref().map(|mid| Snapshots {
+            every: mid.every,
+            save: &save_partial,
+        });
+        let shards = pass::run_resumable(
             source,
             self.plan,
             &columns,
-            || PassSums {
-                loss: 0.0,
-                grad: vec![0.0; layout.dim()],
-                wrong: 0.0,
-                overflow: None,
-                block: Block::default(),
-                z: Vec::new(),
-            },
+            || PassSums::empty(layout.dim()),
             |acc, at| {
                 let mut block = std::mem::take(&mut acc.block);
                 design.build_block(source, &at, true, &mut block)?;
@@ -174,6 +303,8 @@ impl Objective for GlmObjective<'_> {
                 acc.block = block;
                 Ok(())
             },
+            starts,
+            snapshots,
         )?;
         self.passes += 1;
         let mut loss_sum = 0.0;
