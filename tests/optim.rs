@@ -451,8 +451,8 @@ fn lbfgs_resume_is_bitwise_identical() {
     check_resume(&make, &[1, 7, 25]);
 }
 
-/// OWL-QN on the lasso problem: resumption after 1, 5 and 12 iterations is bitwise
-/// identical.
+/// OWL-QN on the lasso problem: resumption after 1, 4 and 8 iterations is bitwise
+/// identical (the run from zero takes 9 iterations).
 #[test]
 fn owlqn_resume_is_bitwise_identical() {
     let make = || -> (Box<dyn Objective>, Vec<f64>, Settings) {
@@ -460,7 +460,7 @@ fn owlqn_resume_is_bitwise_identical() {
         let dim = l1.len();
         (Box::new(obj), vec![0.0; dim], penalized_settings(l1))
     };
-    check_resume(&make, &[1, 5, 12]);
+    check_resume(&make, &[1, 4, 8]);
 }
 
 // ---------------------------------------------------------------------------------------

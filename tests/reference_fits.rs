@@ -437,7 +437,6 @@ fn diabetes_linear_l1_sklearn_exact() {
 
 /// Source: as above, `expected_with_standardization` (all ten coefficients nonzero).
 #[test]
-#[ignore = "library: OWL-QN with standardization stalls (`flat` after ~700 passes, max |pseudo-gradient| ~5e-6) leaving s1, s2 off by 3.0e-3, 2.6e-3 (bounds 2.8e-3, 7.3e-4); see the reference-fits report"]
 fn diabetes_linear_l1_standardized_sklearn_exact() {
     let dir = tempdir();
     check_standardized(&Spec::new("diabetes_linear_l1", "squared"), dir.path());

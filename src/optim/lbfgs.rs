@@ -67,6 +67,84 @@ pub(crate) fn two_loop(
     }
 }
 
+/// `Σ a[i] · b[i]` over the indices where `free[i]`, summed in index order.
+fn dot_free(a: &[f64], b: &[f64], free: &[bool]) -> f64 {
+    a.iter()
+        .zip(b)
+        .zip(free)
+        .fold(0.0, |acc, ((x, y), f)| if *f { acc + x * y } else { acc })
+}
+
+/// The two-loop recursion restricted to the subspace of the coordinates where
+/// `free[i]`: every pair is replaced by its restriction `(s_F, y_F)`, pairs whose
+/// restriction fails [`curvature_ok`] (with `eps`) are left out, and `d` is 0 outside
+/// the subspace. The result is `d_F = −H_F g_F` for the L-BFGS inverse-Hessian
+/// approximation `H_F` of the reduced problem; when the fixed coordinates did not move
+/// in a step (`s_A = 0`), `y_F = ∇²f_FF s_F` holds exactly for a quadratic, so the
+/// restricted pair is a true secant pair of the reduced Hessian. With every coordinate
+/// free this is [`two_loop`] (same operations, same bits) except that pairs are checked
+/// again. `alpha` and `kept` are scratch of at least `s.len()` entries.
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn two_loop_free(
+    s: &[Vec<f64>],
+    y: &[Vec<f64>],
+    g: &[f64],
+    free: &[bool],
+    eps: f64,
+    d: &mut [f64],
+    alpha: &mut [f64],
+    kept: &mut [bool],
+) {
+    for (q, (gi, f)) in d.iter_mut().zip(g.iter().zip(free)) {
+        *q = if *f { *gi } else { 0.0 };
+    }
+    let m = s.len();
+    let mut newest = None;
+    for i in 0..m {
+        let sy = dot_free(&s[i], &y[i], free);
+        let bound = eps * dot_free(&s[i], &s[i], free).sqrt() * dot_free(&y[i], &y[i], free).sqrt();
+        kept[i] = sy.is_finite() && bound.is_finite() && sy > bound && sy > 0.0;
+        if kept[i] {
+            newest = Some(i);
+        }
+    }
+    for i in (0..m).rev() {
+        if !kept[i] {
+            continue;
+        }
+        let rho = 1.0 / dot_free(&y[i], &s[i], free);
+        let a = rho * dot_free(&s[i], d, free);
+        alpha[i] = a;
+        for ((q, yi), f) in d.iter_mut().zip(&y[i]).zip(free) {
+            if *f {
+                *q -= a * yi;
+            }
+        }
+    }
+    if let Some(k) = newest {
+        let gamma = dot_free(&s[k], &y[k], free) / dot_free(&y[k], &y[k], free);
+        for q in d.iter_mut() {
+            *q *= gamma;
+        }
+    }
+    for i in 0..m {
+        if !kept[i] {
+            continue;
+        }
+        let rho = 1.0 / dot_free(&y[i], &s[i], free);
+        let beta = rho * dot_free(&y[i], d, free);
+        let c = alpha[i] - beta;
+        for ((r, si), f) in d.iter_mut().zip(&s[i]).zip(free) {
+            if *f {
+                *r += c * si;
+            }
+        }
+    }
+    for v in d.iter_mut() {
+        *v = -*v;
+    }
+}
+
 /// True when the pair `(s, y)` has curvature safely above zero:
 /// `sᵀy > eps · ‖s‖ · ‖y‖` (and everything finite).
 pub(crate) fn curvature_ok(s: &[f64], y: &[f64], eps: f64) -> bool {

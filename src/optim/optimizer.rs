@@ -6,8 +6,9 @@
 //! 1. At the current point, the gradient test (`‖g‖∞ ≤ tol · max(1, |f|)`, with the
 //!    pseudo-gradient under L1) and the budgets are checked; a run that is already done
 //!    stops without evaluating anything.
-//! 2. Direction: `d = −H g` from the two-loop recursion (OWL-QN: `−H ◇F`, then
-//!    constrained to the orthant), first trial `α₀ = 1`. If `d` is not a descent
+//! 2. Direction: `d = −H g` from the two-loop recursion (OWL-QN: `−H_F ◇F` in the
+//!    subspace of the free coordinates, then the sign constraint at coordinates at 0),
+//!    first trial `α₀ = 1`. If `d` is not a descent
 //!    direction, the history is reset and the scaled steepest-descent direction
 //!    `d = −γ g` (`γ = sᵀy / yᵀy` of the newest pair) is used, still with `α₀ = 1`. With
 //!    no history at all (the first iteration) `d = −g` and `α₀ = 1 / ‖d‖₂`, so the first
@@ -53,10 +54,11 @@
 
 use std::time::Instant;
 
-use super::lbfgs::{curvature_ok, dot, norm2, norm_inf, push_pair, two_loop};
+use super::lbfgs::{curvature_ok, dot, norm2, norm_inf, push_pair, two_loop, two_loop_free};
 use super::line_search::{MoreThuente, Next, Params, Warning};
 use super::owlqn::{
-    constrain_direction, l1_term, orthant, project, pseudo_gradient, pseudo_gradient_component,
+    constrain_direction, free_set, l1_term, orthant, project, pseudo_gradient,
+    pseudo_gradient_component,
 };
 use super::{Iteration, Minimum, Objective, Settings, State, StepOutcome, Stop};
 use crate::{Error, Result};
@@ -158,6 +160,10 @@ struct Work {
     y: Vec<f64>,
     /// Two-loop coefficients.
     alpha: Vec<f64>,
+    /// OWL-QN: which pairs the subspace two-loop uses.
+    kept: Vec<bool>,
+    /// OWL-QN: the coordinates free to move (not held at zero by the L1 kink).
+    free: Vec<bool>,
 }
 
 impl Work {
@@ -173,6 +179,8 @@ impl Work {
             s: vec![0.0; dim],
             y: vec![0.0; dim],
             alpha: vec![0.0; history],
+            kept: vec![false; history],
+            free: vec![true; dim],
         }
     }
 }
@@ -567,9 +575,21 @@ impl Optimizer {
             &st.g
         };
         if !*reset && !st.s.is_empty() {
-            two_loop(&st.s, &st.y, grad, &mut w.d, &mut w.alpha);
             if owl {
-                constrain_direction(&st.settings.l1, grad, &mut w.d);
+                free_set(&st.settings.l1, &st.x, grad, &mut w.free);
+                two_loop_free(
+                    &st.s,
+                    &st.y,
+                    grad,
+                    &w.free,
+                    st.settings.curvature_eps,
+                    &mut w.d,
+                    &mut w.alpha,
+                    &mut w.kept,
+                );
+                constrain_direction(&st.settings.l1, &st.x, grad, &mut w.d);
+            } else {
+                two_loop(&st.s, &st.y, grad, &mut w.d, &mut w.alpha);
             }
             let slope = dot(grad, &w.d);
             if slope < 0.0 && slope.is_finite() {

@@ -6,8 +6,14 @@
 //! - the pseudo-gradient `◇F(x)`: the one-sided derivative of `F` that points downhill,
 //!   0 at a kink whose subdifferential contains 0;
 //! - the orthant `ξ`: `sign(x_j)` where `x_j ≠ 0`, else `sign(−◇F_j)`;
-//! - the direction constraint: a component of the quasi-Newton direction whose sign
-//!   differs from `−◇F_j` is set to 0;
+//! - the free set: every coordinate except the penalized ones at exactly 0 whose
+//!   subdifferential contains 0 (`◇F_j = 0`); the quasi-Newton direction is computed in
+//!   the subspace of the free coordinates (see `lbfgs::two_loop_free`);
+//! - the direction constraint, at coordinates at 0 only: a component whose sign differs
+//!   from `−◇F_j` is set to 0. Andrew & Gao apply it to every coordinate; away from 0
+//!   that discards valid quasi-Newton components (`F` is smooth there, and the
+//!   projection below already keeps the trial in the orthant), which on correlated
+//!   columns wrecked the direction (see docs/optim.md, "Direction under L1");
 //! - the projection of a trial point onto the orthant: a penalized component that
 //!   leaves it (changes sign, or moves off 0 in a coordinate where `ξ_j = 0`) is set to
 //!   exactly 0.0. This is what produces exact zeros.
@@ -45,12 +51,23 @@ pub(crate) fn pseudo_gradient(l1: &[f64], x: &[f64], g: &[f64], pg: &mut [f64]) 
     }
 }
 
-/// Sets to 0 each penalized component of `d` whose sign disagrees with `−pg`.
-pub(crate) fn constrain_direction(l1: &[f64], pg: &[f64], d: &mut [f64]) {
+/// Sets to 0 each penalized component of `d` at a coordinate with `x_j = 0` whose sign
+/// disagrees with `−pg` (there `F` is not differentiable and a move against `−pg` does
+/// not descend). Coordinates away from 0 keep their component. Removing components with
+/// `d_j · pg_j ≥ 0` never makes `pgᵀd` less negative, so a descent direction stays one.
+pub(crate) fn constrain_direction(l1: &[f64], x: &[f64], pg: &[f64], d: &mut [f64]) {
     for j in 0..d.len() {
-        if l1[j] > 0.0 && d[j] * pg[j] >= 0.0 {
+        if l1[j] > 0.0 && x[j] == 0.0 && d[j] * pg[j] >= 0.0 {
             d[j] = 0.0;
         }
+    }
+}
+
+/// Marks the coordinates free to move: all but the penalized ones at exactly zero whose
+/// subdifferential contains 0 (`pg_j = 0`), which the orthant holds at zero.
+pub(crate) fn free_set(l1: &[f64], x: &[f64], pg: &[f64], free: &mut [bool]) {
+    for j in 0..x.len() {
+        free[j] = !(l1[j] > 0.0 && x[j] == 0.0 && pg[j] == 0.0);
     }
 }
 

@@ -3,9 +3,9 @@
 //! end-to-end cases. Integration tests with published references are in
 //! `tests/optim.rs`.
 
-use super::lbfgs::{curvature_ok, dot, norm_inf, push_pair, two_loop};
+use super::lbfgs::{curvature_ok, dot, norm_inf, push_pair, two_loop, two_loop_free};
 use super::line_search::{MoreThuente, Next, Params};
-use super::owlqn::{constrain_direction, l1_term, orthant, project, pseudo_gradient};
+use super::owlqn::{constrain_direction, free_set, l1_term, orthant, project, pseudo_gradient};
 use super::{minimize, Objective, Settings, Stop};
 
 /// A one-dimensional function: value and derivative at a step.
@@ -134,6 +134,37 @@ fn two_loop_satisfies_the_secant_equation() {
     assert_eq!(d, vec![-1.0, 2.0, -3.0]);
 }
 
+/// The subspace two-loop: with every coordinate free it gives the bits of `two_loop`;
+/// restricted, it is 0 outside the subspace and satisfies the secant equation of the
+/// restricted pairs (`H_F y_F = s_F`).
+#[test]
+fn two_loop_free_restricts_to_the_subspace() {
+    let s = vec![vec![0.3, -1.2, 0.5], vec![-0.7, 0.4, 0.9]];
+    let y = vec![vec![0.9, -2.0, 1.1], vec![-1.5, 0.2, 2.3]];
+    let g = [0.4, -0.8, 1.3];
+    let (mut d1, mut d2) = (vec![0.0; 3], vec![0.0; 3]);
+    let mut alpha = vec![0.0; 2];
+    let mut kept = vec![false; 2];
+    two_loop(&s, &y, &g, &mut d1, &mut alpha);
+    two_loop_free(
+        &s, &y, &g, &[true; 3], 1e-10, &mut d2, &mut alpha, &mut kept,
+    );
+    assert_eq!(
+        d1.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+        d2.iter().map(|v| v.to_bits()).collect::<Vec<_>>()
+    );
+    let free = [true, false, true];
+    let newest_y = [y[1][0], 7.0, y[1][2]];
+    two_loop_free(
+        &s, &y, &newest_y, &free, 1e-10, &mut d2, &mut alpha, &mut kept,
+    );
+    assert_eq!(d2[1], 0.0);
+    assert!(
+        (-d2[0] - s[1][0]).abs() < 1e-14 && (-d2[2] - s[1][2]).abs() < 1e-14,
+        "{d2:?}"
+    );
+}
+
 /// On a quadratic with exact line searches, the newest pairs reproduce the Hessian's
 /// inverse along their own directions; check the direction is a descent direction and
 /// that the history ring keeps the newest `m` pairs in order.
@@ -186,10 +217,17 @@ fn pseudo_gradient_cases() {
     orthant(&x, &pg, &mut xi);
     assert_eq!(xi, [1.0, -1.0, 1.0, -1.0, 0.0, -1.0]);
 
-    // A direction component whose sign disagrees with −pg is dropped (penalized only).
+    // A direction component whose sign disagrees with −pg is dropped only at a
+    // penalized coordinate at zero; away from zero (index 1) it is kept and the
+    // projection of the trial point guards the orthant.
     let mut d = [-1.0, -1.0, 1.0, 1.0, 1.0, 1.0];
-    constrain_direction(&l1, &pg, &mut d);
-    assert_eq!(d, [-1.0, 0.0, 1.0, 0.0, 0.0, 1.0]);
+    constrain_direction(&l1, &x, &pg, &mut d);
+    assert_eq!(d, [-1.0, -1.0, 1.0, 0.0, 0.0, 1.0]);
+
+    // Only a penalized zero with 0 in its subdifferential (index 4) is held fixed.
+    let mut free = [false; 6];
+    free_set(&l1, &x, &pg, &mut free);
+    assert_eq!(free, [true, true, true, true, false, true]);
 
     // Trial points leaving the orthant are set to exactly zero.
     let mut t = [-0.1, -1.0, 0.3, 0.2, 0.1, -5.0];
