@@ -43,6 +43,16 @@ pub struct FitSettings {
     pub shards: Option<usize>,
     /// Rows per block.
     pub block_rows: usize,
+    /// Compute standard errors, statistics, p-values and intervals after the fit.
+    #[serde(default)]
+    pub inference: bool,
+    /// Most dense features the coefficient table is computed for.
+    #[serde(default = "default_inference_max_features")]
+    pub inference_max_features: usize,
+}
+
+fn default_inference_max_features() -> usize {
+    crate::inference::DEFAULT_MAX_FEATURES
 }
 
 impl FitSettings {
@@ -59,6 +69,8 @@ impl FitSettings {
             threads: default_threads(),
             shards: None,
             block_rows: DEFAULT_BLOCK_ROWS,
+            inference: false,
+            inference_max_features: default_inference_max_features(),
         }
     }
 
@@ -591,6 +603,29 @@ fn drive(
             events,
         );
     }
+    // Standard errors: one extra pass at the optimum; a failure is a warning, not an error.
+    let inferred = if settings.inference {
+        let req = crate::inference::Request {
+            source: &session.source,
+            plan: &session.plan,
+            design: &session.design,
+            layout,
+            x: optimizer.x(),
+            ridge: settings.ridge,
+            lasso: settings.lasso,
+            weight_sum: session.record.weight_sum,
+            max_features: settings.inference_max_features,
+            stop,
+        };
+        let out = crate::inference::after_fit(&req)?;
+        if let Some(w) = &out.warning {
+            events(FitEvent::Warning(w));
+            warnings.push(w.clone());
+        }
+        out
+    } else {
+        crate::inference::AfterFit::default()
+    };
     let fit = FitRecord {
         stop: stop.as_str().to_string(),
         message,
@@ -598,7 +633,7 @@ fn drive(
         gradient_max: optimizer.gradient_max(),
         tol: settings.tol,
         iterations: optimizer.state().iterations,
-        passes: passes_now(&objective),
+        passes: passes_now(&objective) + inferred.passes,
         seconds: session.prior_seconds + session.started.elapsed().as_secs_f64(),
         rows: session.record.rows,
         weight_sum: session.record.weight_sum,
@@ -623,6 +658,7 @@ fn drive(
             lasso: settings.lasso,
         },
         fit,
+        inference: inferred.table,
     };
     Ok(FitOutcome { model, stop, log })
 }

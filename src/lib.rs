@@ -50,6 +50,7 @@ pub mod demo;
 pub mod error;
 pub mod features;
 pub mod fit;
+pub mod inference;
 pub mod model;
 pub mod objective;
 pub mod optim;

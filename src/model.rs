@@ -10,6 +10,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value};
 
 use crate::features::{Design, Feature, FeatureRequest, MissingPolicy};
+use crate::inference::InferenceTable;
 use crate::objective::{Layout, Loss};
 use crate::{atomic, Error, Result};
 
@@ -89,6 +90,8 @@ pub struct Model {
     pub penalty: Penalty,
     /// How the fit ended.
     pub fit: FitRecord,
+    /// Standard errors and intervals, when the fit was asked for them (`--inference`).
+    pub inference: Option<InferenceTable>,
 }
 
 /// Intercepts and coefficients on the original scale: one row per output
@@ -233,6 +236,7 @@ impl Model {
                 reference_class: self.layout.reference,
                 coefficients: self.internal.clone(),
             },
+            inference: self.inference.as_ref().map(InferenceTable::to_value),
         }
     }
 
@@ -331,6 +335,11 @@ impl Model {
         if file.internal.coefficients.iter().any(|v| !v.is_finite()) {
             return Err(Error::format("a coefficient is not a finite number"));
         }
+        let inference = file
+            .inference
+            .as_ref()
+            .map(|v| InferenceTable::from_value(v, loss == Loss::Softmax))
+            .transpose()?;
         Ok(Model {
             loss,
             target: file.target,
@@ -343,6 +352,7 @@ impl Model {
             internal: file.internal.coefficients,
             penalty: file.penalty,
             fit: file.fit,
+            inference,
         })
     }
 }
@@ -414,4 +424,7 @@ pub struct ModelFile {
     pub missing: MissingPolicy,
     /// The internal vector.
     pub internal: InternalRecord,
+    /// Standard errors, statistics, p-values and intervals (only with `--inference`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub inference: Option<Value>,
 }

@@ -89,6 +89,13 @@ pub struct FitArgs {
     /// Fit and penalize on the raw scale instead of standardized features.
     #[arg(long)]
     pub no_standardize: bool,
+    /// After the fit, compute standard errors, z or t statistics, p-values and 95%
+    /// intervals (one extra pass; dense models up to --inference-max-features).
+    #[arg(long)]
+    pub inference: bool,
+    /// Most features the coefficient table of --inference is computed for (default 2000).
+    #[arg(long, value_name = "N")]
+    pub inference_max_features: Option<usize>,
     /// Run directory for the log and settings (default: next to --out, `MODEL.run`).
     #[arg(long, value_name = "DIR")]
     pub run: Option<PathBuf>,

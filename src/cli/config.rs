@@ -33,6 +33,8 @@ struct FitConfig {
     missing: Option<String>,
     skip_missing_target: Option<bool>,
     standardize: Option<bool>,
+    inference: Option<bool>,
+    inference_max_features: Option<usize>,
     run: Option<PathBuf>,
     out: Option<PathBuf>,
 }
@@ -147,6 +149,11 @@ pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
         .block_rows
         .or(config.block_rows)
         .unwrap_or(settings.block_rows);
+    settings.inference = args.inference || config.inference.unwrap_or(false);
+    settings.inference_max_features = args
+        .inference_max_features
+        .or(config.inference_max_features)
+        .unwrap_or(settings.inference_max_features);
     if settings.block_rows == 0 {
         return Err(Error::usage("--block-rows must be at least 1"));
     }

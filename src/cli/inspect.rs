@@ -104,6 +104,10 @@ pub fn run(args: InspectArgs) -> Result<i32> {
             order.len()
         ));
     }
+    if let Some(table) = &model.inference {
+        lines.push(String::new());
+        lines.extend(table.table_lines());
+    }
     for l in lines {
         output::line(&l);
     }
