@@ -6,14 +6,15 @@
 
 use std::path::{Path, PathBuf};
 use std::sync::atomic::AtomicBool;
-use std::sync::Arc;
-use std::time::Instant;
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
 
 use serde::{Deserialize, Serialize};
 
-use crate::checkpoint::{self, Checkpoint, Progress, RunIdentity};
+use crate::checkpoint::{self, Checkpoint, PartialPass, Progress, RunIdentity};
 use crate::features::{self, Design, Feature, FeatureRequest, Summary};
 use crate::model::{FitRecord, Model, Penalty};
+use crate::objective::glm::MidPassCheckpoints;
 use crate::objective::{GlmObjective, Layout, Loss};
 use crate::optim::{Optimizer, Settings, StepOutcome, Stop};
 use crate::pass::PassPlan;
@@ -199,6 +200,9 @@ pub enum FitEvent<'a> {
         iteration: u64,
         /// Passes done before the checkpoint.
         passes: u64,
+        /// True when the checkpoint holds the partial sums of a pass in progress, which
+        /// the resumed fit continues instead of starting the pass again.
+        pass_in_progress: bool,
     },
 }
 
@@ -222,6 +226,9 @@ pub struct Control {
     /// Run directory to checkpoint into after every accepted iteration (none: no
     /// checkpoints).
     pub checkpoint_dir: Option<PathBuf>,
+    /// Inside a long pass, also checkpoint the partial sums this often (none: only
+    /// between iterations).
+    pub checkpoint_every: Option<Duration>,
 }
 
 /// What may change when a fit is resumed: nothing that changes the objective.
@@ -260,6 +267,8 @@ struct Session {
     layout: Layout,
     started: Instant,
     prior_seconds: f64,
+    /// The last checkpoint saved between iterations; checkpoints inside a pass extend it.
+    latest: Mutex<Option<Checkpoint>>,
 }
 
 /// The settings that define the objective and the iterates (compared on resume).
@@ -302,8 +311,26 @@ impl Session {
             state: optimizer.state().clone(),
             partial: None,
         };
-        checkpoint::save(dir, &cp)
+        checkpoint::save(dir, &cp)?;
+        if let Ok(mut latest) = self.latest.lock() {
+            *latest = Some(cp);
+        }
+        Ok(())
     }
+
+
+}
+
+/// Saves the last accepted state (`latest`) together with a pass in progress.
+fn session_save_partial(latest: &Mutex<Option<Checkpoint>>, control: &Control, partial: PartialPass) -> Result<()> {
+    let Some(dir) = &control.checkpoint_dir else {
+        return Ok(());
+    };
+    let Some(mut cp) = latest.lock().ok().and_then(|l| l.clone()) else {
+        return Ok(());
+    };
+    cp.partial = Some(partial);
+    checkpoint::save(dir, &cp)
 }
 
 /// Fits a model on the Parquet files named by `data`.
@@ -361,6 +388,7 @@ pub fn fit(
         layout,
         started,
         prior_seconds: 0.0,
+        latest: Mutex::new(None),
     };
     let optim_settings = optimizer_settings(settings, layout);
     let mut objective = GlmObjective::new(
@@ -378,7 +406,7 @@ pub fn fit(
     let passes = 1 + objective.passes();
     drop(objective);
     session.save_checkpoint(control, &optimizer, passes)?;
-    drive(&mut session, optimizer, passes, control, events)
+    drive(&mut session, optimizer, passes, None, control, events)
 }
 
 /// What a resumed fit needs besides the checkpoint: the data and settings it started with.
@@ -410,6 +438,7 @@ pub fn resume(
     events(FitEvent::Resumed {
         iteration: cp.state.iterations,
         passes: cp.progress.passes,
+        pass_in_progress: cp.partial.is_some(),
     });
     let mut settings = started_with.settings.clone();
     if overrides.max_passes.is_some() {
@@ -470,6 +499,7 @@ pub fn resume(
         layout,
         started,
         prior_seconds: cp.progress.seconds,
+        latest: Mutex::new(None),
     };
     let mut state = cp.state;
     if state.x.len() != layout.dim() {
@@ -484,7 +514,14 @@ pub fn resume(
     state.settings.max_evals = budget.max_evals;
     state.settings.max_seconds = budget.max_seconds;
     let optimizer = Optimizer::from_state(state)?;
-    drive(&mut session, optimizer, cp.progress.passes, control, events)
+    // Later mid-pass checkpoints extend the state the fit resumed from.
+    session.latest = Mutex::new(Some(Checkpoint {
+        identity: session.identity(),
+        progress: cp.progress.clone(),
+        state: optimizer.state().clone(),
+        partial: None,
+    }));
+    drive(&mut session, optimizer, cp.progress.passes, cp.partial, control, events)
 }
 
 fn optimizer_settings(settings: &FitSettings, layout: Layout) -> Settings {
@@ -515,6 +552,7 @@ fn drive(
     session: &mut Session,
     mut optimizer: Optimizer,
     passes_before: u64,
+    partial: Option<PartialPass>,
     control: &Control,
     events: &mut dyn FnMut(FitEvent<'_>),
 ) -> Result<FitOutcome> {
@@ -523,6 +561,7 @@ fn drive(
     let layout = session.layout;
     let penalized = settings.penalized();
     let separable_watch = !penalized && matches!(request.loss, Loss::Logistic | Loss::Softmax);
+    let save_partial = |p: PartialPass| session_save_partial(&session.latest, control, p);
     let mut objective = GlmObjective::new(
         &session.source,
         &session.plan,
@@ -531,6 +570,15 @@ fn drive(
         settings.ridge,
         session.record.weight_sum,
     );
+    if let (Some(every), Some(_)) = (control.checkpoint_every, &control.checkpoint_dir) {
+        objective = objective.with_mid_pass_checkpoints(MidPassCheckpoints {
+            every,
+            save: &save_partial,
+        });
+    }
+    if let Some(p) = partial {
+        objective.resume_pass(p);
+    }
     // The objective counts evaluation passes; the statistics pass comes first.
     let passes_now = |objective: &GlmObjective<'_>| passes_before + objective.passes();
     let mut log = Vec::new();

@@ -311,3 +311,59 @@ fn resume_refuses_changed_data_or_settings_and_falls_back_to_the_older_checkpoin
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(err.contains("data changed"), "{err}");
 }
+
+#[test]
+fn checkpoints_inside_long_passes_are_continued_and_end_bitwise_identical() {
+    let s = setup();
+    let reference = s.root.join("ref.json");
+    let small_blocks = |mut a: Vec<String>| {
+        for x in a.iter_mut() {
+            if x == "512" {
+                *x = "64".into();
+            }
+        }
+        a
+    };
+    let args = small_blocks(fit_args(&s.data, &reference, "2"));
+    let started = Instant::now();
+    let o = run(&args);
+    let full = started.elapsed();
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    let expected = fingerprint(&reference);
+
+    let out = s.root.join("mid.json");
+    let run_dir = s.root.join("mid.run");
+    let mut rng = Rng(7);
+    let mut continued_a_pass = false;
+    let mut kills = 0;
+    loop {
+        let has_checkpoint = run_dir.join("checkpoint").exists();
+        let mut args: Vec<String> = if has_checkpoint {
+            ["resume", run_dir.to_str().unwrap(), "--threads", "1"].iter().map(|s| s.to_string()).collect()
+        } else {
+            let mut a = small_blocks(fit_args(&s.data, &out, "2"));
+            a.retain(|x| x != "--quiet");
+            a
+        };
+        args.extend(["--checkpoint-every".into(), "3ms".into()]);
+        let mut child = spawn(&args);
+        if kills < 6 {
+            std::thread::sleep(full.mul_f64(0.05 + 0.3 * rng.next()));
+            if child.try_wait().unwrap().is_none() {
+                child.kill().unwrap();
+                let o = child.wait_with_output().unwrap();
+                continued_a_pass |= String::from_utf8_lossy(&o.stderr).contains("continuing the pass in progress");
+                kills += 1;
+                continue;
+            }
+        }
+        let o = child.wait_with_output().unwrap();
+        let err = String::from_utf8_lossy(&o.stderr).into_owned();
+        continued_a_pass |= err.contains("continuing the pass in progress");
+        assert_eq!(o.status.code(), Some(0), "{args:?}: {err}");
+        break;
+    }
+    eprintln!("{kills} kills; a resume continued a pass in progress: {continued_a_pass}");
+    assert!(continued_a_pass, "no resume continued a partial pass");
+    assert_eq!(fingerprint(&out), expected);
+}

@@ -102,6 +102,10 @@ pub struct FitArgs {
     /// Where to write the model file.
     #[arg(long, value_name = "MODEL.json")]
     pub out: Option<PathBuf>,
+    /// Inside a long pass, checkpoint the partial sums this often: `90s`, `5m`, `1h`,
+    /// `250ms` or seconds (default 5m).
+    #[arg(long, value_name = "DURATION")]
+    pub checkpoint_every: Option<String>,
     /// Print one JSON summary object on stdout at the end (progress stays on stderr).
     #[arg(long)]
     pub json: bool,
@@ -125,6 +129,9 @@ pub struct ResumeArgs {
     /// Threads for the passes (the shard count stays as recorded).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
+    /// Inside a long pass, checkpoint the partial sums this often (default 5m).
+    #[arg(long, value_name = "DURATION")]
+    pub checkpoint_every: Option<String>,
     /// Print one JSON summary object on stdout at the end.
     #[arg(long)]
     pub json: bool,

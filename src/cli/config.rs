@@ -2,6 +2,7 @@
 //! one [`FitPlan`].
 
 use std::path::{Path, PathBuf};
+use std::time::Duration;
 
 use serde::Deserialize;
 
@@ -37,6 +38,7 @@ struct FitConfig {
     inference_max_features: Option<usize>,
     run: Option<PathBuf>,
     out: Option<PathBuf>,
+    checkpoint_every: Option<String>,
 }
 
 /// A fit fully resolved from flags and settings file.
@@ -50,6 +52,8 @@ pub struct FitPlan {
     pub out: PathBuf,
     /// Run directory.
     pub run: PathBuf,
+    /// Checkpoints inside a pass.
+    pub checkpoint_every: Duration,
 }
 
 fn read_config(path: &Path) -> Result<FitConfig> {
@@ -163,12 +167,44 @@ pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
         (None, Some(r)) => base.join(r),
         (None, None) => default_run_dir(&out),
     };
+    let checkpoint_every = parse_duration(
+        args.checkpoint_every
+            .as_deref()
+            .or(config.checkpoint_every.as_deref())
+            .unwrap_or("5m"),
+    )?;
     Ok(FitPlan {
         data,
         settings,
         out,
         run,
+        checkpoint_every,
     })
+}
+
+/// Parses `250ms`, `90s`, `5m`, `2h` or a plain number of seconds.
+pub fn parse_duration(text: &str) -> Result<Duration> {
+    let t = text.trim();
+    let (number, unit) = match t.find(|c: char| c.is_ascii_alphabetic()) {
+        Some(i) => (&t[..i], &t[i..]),
+        None => (t, "s"),
+    };
+    let scale = match unit {
+        "ms" => 1e-3,
+        "s" => 1.0,
+        "m" | "min" => 60.0,
+        "h" => 3600.0,
+        _ => f64::NAN,
+    };
+    let value: f64 = number.trim().parse().unwrap_or(f64::NAN);
+    let seconds = value * scale;
+    if seconds.is_finite() && seconds > 0.0 {
+        Ok(Duration::from_secs_f64(seconds))
+    } else {
+        Err(Error::usage(format!(
+            "'{text}' is not a duration; write for example 250ms, 90s, 5m or 1h"
+        )))
+    }
 }
 
 /// `MODEL.run` beside `MODEL.json`.

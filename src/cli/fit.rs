@@ -86,10 +86,19 @@ impl Reporter<'_> {
                     Err(e) => self.run_error = Some(e),
                 }
             }
-            FitEvent::Resumed { iteration, passes } => {
+            FitEvent::Resumed {
+                iteration,
+                passes,
+                pass_in_progress,
+            } => {
                 if !self.quiet {
+                    let within = if pass_in_progress {
+                        ", continuing the pass in progress"
+                    } else {
+                        ""
+                    };
                     output::note(&format!(
-                        "resuming after iteration {iteration} ({passes} passes done) on {} threads",
+                        "resuming after iteration {iteration} ({passes} passes done{within}) on {} threads",
                         self.settings.threads
                     ));
                 }
@@ -196,10 +205,12 @@ pub fn run(args: FitArgs) -> Result<i32> {
         settings,
         out,
         run,
+        checkpoint_every,
     } = &plan;
     let control = Control {
         cancel: cancel_on_signals(),
         checkpoint_dir: Some(run.clone()),
+        checkpoint_every: Some(*checkpoint_every),
     };
     let mut reporter = Reporter {
         quiet: args.quiet,
@@ -227,6 +238,9 @@ pub fn resume(args: ResumeArgs) -> Result<i32> {
     let control = Control {
         cancel: cancel_on_signals(),
         checkpoint_dir: Some(run.clone()),
+        checkpoint_every: Some(config::parse_duration(
+            args.checkpoint_every.as_deref().unwrap_or("5m"),
+        )?),
     };
     let mut shown = settings.clone();
     if let Some(t) = args.threads {
