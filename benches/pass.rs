@@ -45,7 +45,8 @@ fn pass_throughput(c: &mut Criterion) {
     };
     let candidates = features::resolve_columns(&source, &request).expect("columns");
     let stats_plan = PassPlan::new(&source, 2, 2);
-    let summary = features::collect_stats(&source, &stats_plan, &request, &candidates).expect("stats");
+    let summary =
+        features::collect_stats(&source, &stats_plan, &request, &candidates).expect("stats");
     let (design, _) = Design::new(&request, &summary).expect("design");
     let layout = Layout::new(Loss::Logistic, design.width(), 0, false);
     let x = vec![0.01; layout.dim()];
@@ -56,7 +57,8 @@ fn pass_throughput(c: &mut Criterion) {
     for threads in [1usize, 2] {
         // Two shards in both cases: the same sums, only the thread count differs.
         let plan = PassPlan::new(&source, 2, threads);
-        let mut objective = GlmObjective::new(&source, &plan, &design, layout, 0.0, summary.weight_sum);
+        let mut objective =
+            GlmObjective::new(&source, &plan, &design, layout, 0.0, summary.weight_sum);
         group.bench_function(format!("threads_{threads}"), |b| {
             b.iter(|| objective.eval(&x, &mut grad).expect("pass"))
         });

@@ -317,12 +317,14 @@ impl Session {
         }
         Ok(())
     }
-
-
 }
 
 /// Saves the last accepted state (`latest`) together with a pass in progress.
-fn session_save_partial(latest: &Mutex<Option<Checkpoint>>, control: &Control, partial: PartialPass) -> Result<()> {
+fn session_save_partial(
+    latest: &Mutex<Option<Checkpoint>>,
+    control: &Control,
+    partial: PartialPass,
+) -> Result<()> {
     let Some(dir) = &control.checkpoint_dir else {
         return Ok(());
     };
@@ -521,7 +523,14 @@ pub fn resume(
         state: optimizer.state().clone(),
         partial: None,
     }));
-    drive(&mut session, optimizer, cp.progress.passes, cp.partial, control, events)
+    drive(
+        &mut session,
+        optimizer,
+        cp.progress.passes,
+        cp.partial,
+        control,
+        events,
+    )
 }
 
 fn optimizer_settings(settings: &FitSettings, layout: Layout) -> Settings {

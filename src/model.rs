@@ -153,13 +153,23 @@ impl Model {
 
     /// A design that reads data for scoring this model (no target needed).
     pub fn design(&self) -> Design {
+        self.design_skipping(false)
+    }
+
+    /// The design of the training run, reading the training data as the fit did (rows
+    /// with a null target skipped when the fit skipped them).
+    pub fn design_for_training(&self) -> Design {
+        self.design_skipping(self.fit.rows_skipped > 0)
+    }
+
+    fn design_skipping(&self, skip_missing_target: bool) -> Design {
         let request = FeatureRequest {
             target: self.target.clone(),
             weight: self.weight.clone(),
             features: None,
             loss: self.loss,
             missing: self.missing,
-            skip_missing_target: false,
+            skip_missing_target,
             standardize: self.standardize,
         };
         let class_index: HashMap<String, usize> = self

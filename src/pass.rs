@@ -9,8 +9,8 @@
 //! **Invariant:** a pass's result does not depend on the thread count or on scheduling.
 
 use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
-use std::time::{Duration, Instant};
 use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
 
 use crate::source::{BatchAt, Segment, Source};
 use crate::{Error, Result};
@@ -138,7 +138,9 @@ where
         )));
     }
     let starts: Vec<Mutex<Option<ShardStart<A>>>> = if starts.is_empty() {
-        (0..n).map(|_| Mutex::new(Some(ShardStart::Fresh))).collect()
+        (0..n)
+            .map(|_| Mutex::new(Some(ShardStart::Fresh)))
+            .collect()
     } else {
         starts.into_iter().map(|s| Mutex::new(Some(s))).collect()
     };
@@ -148,9 +150,14 @@ where
     let finished = AtomicUsize::new(0);
     let generation = AtomicU64::new(0);
     let want_snapshots = snapshots.is_some();
-    let published: Vec<Mutex<Published<A>>> = (0..n).map(|_| Mutex::new(Published::Waiting)).collect();
+    let published: Vec<Mutex<Published<A>>> =
+        (0..n).map(|_| Mutex::new(Published::Waiting)).collect();
     let slots: Vec<Mutex<Option<Result<A>>>> = (0..n).map(|_| Mutex::new(None)).collect();
-    let cancelled = || plan.cancel.as_ref().is_some_and(|c| c.load(Ordering::Relaxed));
+    let cancelled = || {
+        plan.cancel
+            .as_ref()
+            .is_some_and(|c| c.load(Ordering::Relaxed))
+    };
     let publish = |shard: usize, value: Published<A>| {
         if let Ok(mut p) = published[shard].lock() {
             *p = value;
@@ -161,7 +168,11 @@ where
         if shard >= n || failed.load(Ordering::Relaxed) {
             break;
         }
-        let start = starts[shard].lock().ok().and_then(|mut s| s.take()).unwrap_or(ShardStart::Fresh);
+        let start = starts[shard]
+            .lock()
+            .ok()
+            .and_then(|mut s| s.take())
+            .unwrap_or(ShardStart::Fresh);
         let (mut acc, skip) = match start {
             ShardStart::Fresh => (init(), 0),
             ShardStart::Partial { blocks, acc } => (acc, blocks),
@@ -187,7 +198,10 @@ where
             outcome = source.read_segment(segment, columns, |batch| {
                 if cancelled() {
                     if want_snapshots {
-                        publish(shard, Published::Running(u64::MAX, Some((blocks_done, acc.clone()))));
+                        publish(
+                            shard,
+                            Published::Running(u64::MAX, Some((blocks_done, acc.clone()))),
+                        );
                     }
                     return Err(Error::interrupted());
                 }
@@ -197,7 +211,10 @@ where
                     let g = generation.load(Ordering::Acquire);
                     if g > seen {
                         seen = g;
-                        publish(shard, Published::Running(g, Some((blocks_done, acc.clone()))));
+                        publish(
+                            shard,
+                            Published::Running(g, Some((blocks_done, acc.clone()))),
+                        );
                     }
                 }
                 Ok(())
@@ -233,7 +250,10 @@ where
                 Published::Waiting => ShardStart::Fresh,
                 Published::Done(acc) => ShardStart::Done(acc.clone()),
                 Published::Running(pg, state) if *pg >= g => match state {
-                    Some((blocks, acc)) => ShardStart::Partial { blocks: *blocks, acc: acc.clone() },
+                    Some((blocks, acc)) => ShardStart::Partial {
+                        blocks: *blocks,
+                        acc: acc.clone(),
+                    },
                     None => ShardStart::Fresh,
                 },
                 Published::Running(..) => return None,
@@ -252,7 +272,10 @@ where
             }
             if let Some(snap) = &snapshots {
                 let mut last = Instant::now();
-                let tick = snap.every.min(Duration::from_millis(20)).max(Duration::from_millis(1));
+                let tick = snap
+                    .every
+                    .min(Duration::from_millis(20))
+                    .max(Duration::from_millis(1));
                 while finished.load(Ordering::Relaxed) < n && !failed.load(Ordering::Relaxed) {
                     std::thread::sleep(tick);
                     if last.elapsed() < snap.every {

@@ -620,3 +620,59 @@ fn settings_file_key_turns_inference_on() {
     let inf = out.model().get("inference").expect("a table");
     assert_eq!(inf["coefficients"].as_object().unwrap().len(), 3);
 }
+
+/// `outcore inference` on a model fitted without `--inference` gives the same table as
+/// `fit --inference`, and refuses data other than the training data.
+#[test]
+fn inference_command_adds_the_same_table_to_an_existing_model() {
+    let case = "breast_cancer3_logit_unpenalized";
+    let e = load_expected(case);
+    let dir = tempdir();
+    let data = reference_file(case, "data.parquet");
+    let with = fit_case(dir.path(), "with", &data, &e, "logistic", &[]);
+    let args: Vec<String> = vec![
+        "--data".into(),
+        data.display().to_string(),
+        "--target".into(),
+        e["label_column"]
+            .as_str()
+            .expect("label_column")
+            .to_string(),
+        "--features".into(),
+        expected_features(&e).join(","),
+        "--max-passes".into(),
+        MAX_PASSES.into(),
+        "--tol".into(),
+        "1e-12".into(),
+    ];
+    let without = fit_in(dir.path(), "without", &args);
+    assert!(without.model()["inference"].is_null());
+    let added = dir.path().join("added.json");
+    let o = run_outcore(&[
+        "inference",
+        without.model_path.to_str().unwrap(),
+        "--data",
+        data.to_str().unwrap(),
+        "--out",
+        added.to_str().unwrap(),
+    ]);
+    assert_eq!(exit_code(&o), 0, "{}", String::from_utf8_lossy(&o.stderr));
+    let added: Value = read_json(&added);
+    assert_eq!(added["inference"], with.model()["inference"]);
+    assert_eq!(added["fit"]["passes"].as_u64(), Some(without.passes() + 1));
+
+    // Other data than the training data: refused, nothing written.
+    let other = reference_file("breast_cancer3_logit_rows_duplicated", "data.parquet");
+    let refused = dir.path().join("refused.json");
+    let o = run_outcore(&[
+        "inference",
+        without.model_path.to_str().unwrap(),
+        "--data",
+        other.to_str().unwrap(),
+        "--out",
+        refused.to_str().unwrap(),
+    ]);
+    assert_eq!(exit_code(&o), 2);
+    assert!(String::from_utf8_lossy(&o.stderr).contains("not the data the model was fitted on"));
+    assert!(!refused.exists());
+}

@@ -328,7 +328,12 @@ fn checkpoints_inside_long_passes_are_continued_and_end_bitwise_identical() {
     let started = Instant::now();
     let o = run(&args);
     let full = started.elapsed();
-    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
     let expected = fingerprint(&reference);
 
     let out = s.root.join("mid.json");
@@ -339,7 +344,10 @@ fn checkpoints_inside_long_passes_are_continued_and_end_bitwise_identical() {
     loop {
         let has_checkpoint = run_dir.join("checkpoint").exists();
         let mut args: Vec<String> = if has_checkpoint {
-            ["resume", run_dir.to_str().unwrap(), "--threads", "1"].iter().map(|s| s.to_string()).collect()
+            ["resume", run_dir.to_str().unwrap(), "--threads", "1"]
+                .iter()
+                .map(|s| s.to_string())
+                .collect()
         } else {
             let mut a = small_blocks(fit_args(&s.data, &out, "2"));
             a.retain(|x| x != "--quiet");
@@ -352,7 +360,8 @@ fn checkpoints_inside_long_passes_are_continued_and_end_bitwise_identical() {
             if child.try_wait().unwrap().is_none() {
                 child.kill().unwrap();
                 let o = child.wait_with_output().unwrap();
-                continued_a_pass |= String::from_utf8_lossy(&o.stderr).contains("continuing the pass in progress");
+                continued_a_pass |=
+                    String::from_utf8_lossy(&o.stderr).contains("continuing the pass in progress");
                 kills += 1;
                 continue;
             }

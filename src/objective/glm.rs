@@ -212,7 +212,11 @@ impl<'a> GlmObjective<'a> {
     fn starts_for(&mut self, x: &[f64]) -> Vec<ShardStart<PassSums>> {
         let dim = self.layout.dim();
         let matches = self.resume_from.as_ref().is_some_and(|p| {
-            p.point.len() == x.len() && p.point.iter().zip(x).all(|(a, b)| a.to_bits() == b.to_bits())
+            p.point.len() == x.len()
+                && p.point
+                    .iter()
+                    .zip(x)
+                    .all(|(a, b)| a.to_bits() == b.to_bits())
         });
         if !matches {
             return Vec::new();
@@ -225,7 +229,10 @@ impl<'a> GlmObjective<'a> {
             let start = match shard {
                 ShardProgress::NotStarted => Some(ShardStart::Fresh),
                 ShardProgress::Partial { blocks, sums } => {
-                    PassSums::from_vec(sums, dim).map(|acc| ShardStart::Partial { blocks: *blocks, acc })
+                    PassSums::from_vec(sums, dim).map(|acc| ShardStart::Partial {
+                        blocks: *blocks,
+                        acc,
+                    })
                 }
                 ShardProgress::Done { sums } => PassSums::from_vec(sums, dim).map(ShardStart::Done),
             };
