@@ -111,8 +111,13 @@ impl Reporter<'_> {
             FitEvent::Iteration(r) => {
                 if !self.quiet {
                     output::note(&format!(
-                        "iter {:>4}  passes {:>4}  objective {:.12e}  max|g| {:.3e}  step {:.3e}  {:.2}s",
-                        r.iteration, r.passes, r.objective, r.gradient_max, r.step, r.seconds
+                        "iter {:>4}  passes {:>4}  objective {:<16}  max|g| {}  step {:<9}  {:.2}s",
+                        r.iteration,
+                        r.passes,
+                        output::sig(r.objective, 12),
+                        output::sci(r.gradient_max, 3),
+                        output::sig(r.step, 4),
+                        r.seconds
                     ));
                 }
                 if let Some(d) = self.run_dir.as_mut() {
@@ -145,13 +150,17 @@ impl Reporter<'_> {
         let f = &model.fit;
         if !self.quiet {
             let verdict = if stop.is_converged() {
-                "converged"
+                "converged".to_string()
             } else {
-                "stopped before converging"
+                format!("stopped before converging ({})", f.stop)
             };
             output::note(&format!(
-                "{verdict} ({}) after {} iterations, {} passes, {:.2}s; objective {:.12e}, max|g| {:.3e}",
-                f.stop, f.iterations, f.passes, f.seconds, f.objective, f.gradient_max
+                "{verdict} after {} iterations, {} passes, {:.2}s; objective {}, max|g| {}",
+                f.iterations,
+                f.passes,
+                f.seconds,
+                output::sig(f.objective, 12),
+                output::sci(f.gradient_max, 3)
             ));
             if let Some(m) = &f.message {
                 output::note(m);

@@ -34,12 +34,15 @@ pub fn run(args: InspectArgs) -> Result<i32> {
             f.stop, f.iterations, f.passes, f.seconds
         ),
         format!(
-            "objective   {:.12e} (max|g| {:.3e}, tol {:e})",
-            f.objective, f.gradient_max, f.tol
+            "objective   {} (max|g| {}, tol {})",
+            output::sig(f.objective, 12),
+            output::sci(f.gradient_max, 3),
+            output::compact(f.tol)
         ),
         format!(
             "penalty     ridge {}, lasso {}",
-            model.penalty.ridge, model.penalty.lasso
+            output::compact(model.penalty.ridge),
+            output::compact(model.penalty.lasso)
         ),
     ];
     if let Some(m) = &f.message {
@@ -60,7 +63,10 @@ pub fn run(args: InspectArgs) -> Result<i32> {
         if model.loss == Loss::Softmax {
             lines.push(format!("class '{name}'"));
         }
-        lines.push(format!("intercept   {:.6e}", original.intercepts[k]));
+        lines.push(format!(
+            "intercept   {}",
+            output::sig(original.intercepts[k], 7)
+        ));
         let mut order: Vec<usize> = (0..model.features.len()).collect();
         // Rank by the coefficient on the standardized scale: the effect of one standard
         // deviation, comparable across features.
@@ -90,10 +96,10 @@ pub fn run(args: InspectArgs) -> Result<i32> {
         ));
         for &j in order.iter().take(args.top) {
             lines.push(format!(
-                "{:<width$}  {:>14.6e}  {:>14.6e}",
+                "{:<width$}  {:>14}  {:>14}",
                 model.features[j].name,
-                original.weights[k][j],
-                standardized(j)
+                output::sig(original.weights[k][j], 7),
+                output::sig(standardized(j), 7)
             ));
         }
         if order.len() > args.top {
