@@ -22,6 +22,8 @@ pub enum Command {
     Resume(ResumeArgs),
     /// Score Parquet data with a model and write the scores as Parquet.
     Predict(PredictArgs),
+    /// Measure a model on Parquet data with known targets (log-loss, AUC, RMSE, ...).
+    Evaluate(EvaluateArgs),
     /// Show a model file as a readable summary.
     Inspect(InspectArgs),
     /// Write the invented demo data set (a grocery-delivery order log).
@@ -155,6 +157,27 @@ pub struct PredictArgs {
     /// Columns of the input copied into the output beside the scores.
     #[arg(long, value_delimiter = ',', value_name = "COL,...")]
     pub keep: Vec<String>,
+}
+
+/// Flags of `outcore evaluate`.
+#[derive(Debug, Args)]
+pub struct EvaluateArgs {
+    /// The model file.
+    #[arg(long, value_name = "MODEL.json")]
+    pub model: PathBuf,
+    /// Parquet files, directories of them, or glob patterns; they must hold the target.
+    #[arg(long, required = true, num_args = 1.., value_name = "PATH")]
+    pub data: Vec<String>,
+    /// Print one JSON object with every measure on stdout instead of a table.
+    #[arg(long)]
+    pub json: bool,
+    /// Memory for the exact AUC in MB (16 bytes per row; default 512); past it the AUC
+    /// comes from a histogram of the scores with a stated error bound.
+    #[arg(long, value_name = "MB", allow_negative_numbers = true)]
+    pub auc_memory: Option<f64>,
+    /// Skip (and count) rows whose target is null instead of refusing them.
+    #[arg(long)]
+    pub skip_missing_target: bool,
 }
 
 /// Flags of `outcore inspect`.

@@ -3,6 +3,7 @@
 
 mod args;
 mod config;
+mod evaluate;
 mod fit;
 mod inspect;
 mod output;
@@ -42,6 +43,7 @@ pub fn main() -> i32 {
         Command::Fit(args) => fit::run(*args),
         Command::Resume(args) => fit::resume(args),
         Command::Predict(args) => fit::predict(args),
+        Command::Evaluate(args) => evaluate::run(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Demo(args) => fit::demo(args),
     };
