@@ -833,6 +833,44 @@ impl InferenceTable {
     }
 }
 
+/// Computes the table for an existing model on its training data (one pass), for a
+/// model fitted without `--inference`. The data must be the data the model was fitted
+/// on: the fingerprint is compared with the model's.
+pub fn for_model(
+    model: &Model,
+    source: &Source,
+    threads: usize,
+    max_features: usize,
+) -> Result<AfterFit> {
+    if source.fingerprint() != model.fit.data_fingerprint {
+        return Err(Error::mismatch(
+            "these data are not the data the model was fitted on (their fingerprint differs); \
+             standard errors need the training data exactly as they were: the same files, unchanged",
+        ));
+    }
+    let design = model.design_for_training();
+    let plan = PassPlan::new(source, model.fit.shards, threads);
+    let stop = if model.fit.stop == FitStop::Separable.as_str() {
+        FitStop::Separable
+    } else if model.fit.stop == "converged" {
+        FitStop::Optimizer(crate::optim::Stop::Converged)
+    } else {
+        FitStop::Optimizer(crate::optim::Stop::PassBudget)
+    };
+    after_fit(&Request {
+        source,
+        plan: &plan,
+        design: &design,
+        layout: model.layout,
+        x: &model.internal,
+        ridge: model.penalty.ridge,
+        lasso: model.penalty.lasso,
+        weight_sum: model.fit.weight_sum,
+        max_features,
+        stop,
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -884,42 +922,4 @@ mod tests {
             err.message()
         );
     }
-}
-
-/// Computes the table for an existing model on its training data (one pass), for a
-/// model fitted without `--inference`. The data must be the data the model was fitted
-/// on: the fingerprint is compared with the model's.
-pub fn for_model(
-    model: &Model,
-    source: &Source,
-    threads: usize,
-    max_features: usize,
-) -> Result<AfterFit> {
-    if source.fingerprint() != model.fit.data_fingerprint {
-        return Err(Error::mismatch(
-            "these data are not the data the model was fitted on (their fingerprint differs); \
-             standard errors need the training data exactly as they were: the same files, unchanged",
-        ));
-    }
-    let design = model.design_for_training();
-    let plan = PassPlan::new(source, model.fit.shards, threads);
-    let stop = if model.fit.stop == FitStop::Separable.as_str() {
-        FitStop::Separable
-    } else if model.fit.stop == "converged" {
-        FitStop::Optimizer(crate::optim::Stop::Converged)
-    } else {
-        FitStop::Optimizer(crate::optim::Stop::PassBudget)
-    };
-    after_fit(&Request {
-        source,
-        plan: &plan,
-        design: &design,
-        layout: model.layout,
-        x: &model.internal,
-        ridge: model.penalty.ridge,
-        lasso: model.penalty.lasso,
-        weight_sum: model.fit.weight_sum,
-        max_features,
-        stop,
-    })
 }

@@ -24,6 +24,9 @@ pub enum Command {
     Predict(PredictArgs),
     /// Measure a model on Parquet data with known targets (log-loss, AUC, RMSE, ...).
     Evaluate(EvaluateArgs),
+    /// Add standard errors to a model fitted without --inference (one pass over its
+    /// training data).
+    Inference(InferenceArgs),
     /// Show a model file as a readable summary.
     Inspect(InspectArgs),
     /// Write the invented demo data set (a grocery-delivery order log).
@@ -178,6 +181,26 @@ pub struct EvaluateArgs {
     /// Skip (and count) rows whose target is null instead of refusing them.
     #[arg(long)]
     pub skip_missing_target: bool,
+}
+
+/// Flags of `outcore inference`.
+#[derive(Debug, Args)]
+pub struct InferenceArgs {
+    /// The model file.
+    #[arg(value_name = "MODEL.json")]
+    pub model: PathBuf,
+    /// The training data of the model, unchanged (their fingerprint is checked).
+    #[arg(long, required = true, num_args = 1.., value_name = "PATH")]
+    pub data: Vec<String>,
+    /// Where to write the model with its table (default: over MODEL.json, atomically).
+    #[arg(long, value_name = "MODEL.json")]
+    pub out: Option<PathBuf>,
+    /// Threads for the pass (default: all cores).
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
+    /// Most dense features for which the table is computed.
+    #[arg(long, default_value_t = outcore::inference::DEFAULT_MAX_FEATURES, value_name = "N")]
+    pub inference_max_features: usize,
 }
 
 /// Flags of `outcore inspect`.

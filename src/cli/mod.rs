@@ -5,6 +5,7 @@ mod args;
 mod config;
 mod evaluate;
 mod fit;
+mod inference;
 mod inspect;
 mod output;
 
@@ -44,6 +45,7 @@ pub fn main() -> i32 {
         Command::Resume(args) => fit::resume(args),
         Command::Predict(args) => fit::predict(args),
         Command::Evaluate(args) => evaluate::run(args),
+        Command::Inference(args) => inference::run(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Demo(args) => fit::demo(args),
     };
