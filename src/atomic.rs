@@ -72,6 +72,13 @@ pub fn check_output(path: &Path, what: &str) -> Result<()> {
         Some(d) if !d.as_os_str().is_empty() => d,
         _ => Path::new("."),
     };
+    if dir.exists() && !dir.is_dir() {
+        return Err(Error::usage(format!(
+            "cannot write the {what} {}: {} is a file, not a directory; choose another path",
+            path.display(),
+            dir.display()
+        )));
+    }
     if !dir.is_dir() {
         return Err(Error::usage(format!(
             "the directory {} for the {what} does not exist; create it first",

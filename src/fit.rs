@@ -229,6 +229,9 @@ pub struct Control {
     /// Inside a long pass, also checkpoint the partial sums this often (none: only
     /// between iterations).
     pub checkpoint_every: Option<Duration>,
+    /// Live pass counters (pass number, rows done) that a progress display may read from
+    /// another thread; the driver never prints.
+    pub progress: Option<Arc<crate::pass::PassCounter>>,
 }
 
 /// What may change when a fit is resumed: nothing that changes the objective.
@@ -349,8 +352,18 @@ pub fn fit(
     let candidates = features::resolve_columns(&source, request)?;
     let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
     plan.cancel = control.cancel.clone();
+    plan.progress = control.progress.clone();
     let summary = features::collect_stats(&source, &plan, request, &candidates)?;
+    check_rows(&source, request, &summary)?;
     let (design, warnings) = Design::new(request, &summary)?;
+    // Refused before any event, so that a fit with nothing to fit writes nothing.
+    if design.width() == 0 {
+        return Err(Error::data(format!(
+            "no usable feature is left in {}: every candidate ({}) is constant or empty in the rows used; name other columns with --features",
+            describe_files(&source),
+            candidates.join(", ")
+        )));
+    }
     events(FitEvent::Statistics {
         summary: &summary,
         features: design.width(),
@@ -358,11 +371,6 @@ pub fn fit(
     });
     for w in &warnings {
         events(FitEvent::Warning(w));
-    }
-    if design.width() == 0 {
-        return Err(Error::data(
-            "no usable feature is left (every candidate is constant or empty); name other columns with --features",
-        ));
     }
     let layout = Layout::new(
         request.loss,
@@ -485,6 +493,7 @@ pub fn resume(
     );
     let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
     plan.cancel = control.cancel.clone();
+    plan.progress = control.progress.clone();
     let layout = Layout::new(
         request.loss,
         design.width(),
@@ -623,6 +632,13 @@ fn drive(
                 if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
                     return Err(poisson_overflow(&place));
                 }
+                // No step was ever accepted and some trial overflowed: the overflow is
+                // what stopped the line search.
+                if optimizer.state().iterations == 0 {
+                    if let Some(place) = objective.first_overflow() {
+                        return Err(poisson_overflow(place));
+                    }
+                }
             }
             break FitStop::Optimizer(stop);
         }
@@ -718,6 +734,67 @@ fn drive(
         inference: inferred.table,
     };
     Ok(FitOutcome { model, stop, log })
+}
+
+/// The data files for a message: the path of a single file, or the count and the first.
+fn describe_files(source: &Source) -> String {
+    match source.files() {
+        [one] => one.path.display().to_string(),
+        [first, rest @ ..] => format!(
+            "the {} data files ({} and {} more)",
+            rest.len() + 1,
+            first.path.display(),
+            rest.len()
+        ),
+        [] => "the data".to_string(),
+    }
+}
+
+/// Refuses data that leave nothing to fit, naming the files and the column at fault:
+/// no rows, no positive weight, a single row, a single class.
+fn check_rows(source: &Source, request: &FeatureRequest, summary: &Summary) -> Result<()> {
+    let data = describe_files(source);
+    let target = &request.target;
+    if summary.rows == 0 {
+        return Err(Error::data(format!(
+            "{data} hold no rows; there is nothing to fit; check the step that wrote them"
+        )));
+    }
+    if summary.rows_weighted == 0 || summary.weight_sum <= 0.0 {
+        return Err(Error::data(match &request.weight {
+            _ if summary.skipped_target >= summary.rows => format!(
+                "every row of {data} has a null target '{target}' (skipped); there is nothing to fit"
+            ),
+            Some(w) => format!(
+                "every row of {data} has weight 0 in the weight column '{w}'; at least two rows need a positive weight"
+            ),
+            None => format!("{data} hold no usable row; there is nothing to fit"),
+        }));
+    }
+    if summary.rows_weighted == 1 {
+        return Err(Error::data(format!(
+            "{data} hold only 1 row (with a positive weight and a target '{target}'); a model needs at least 2 rows whose features vary"
+        )));
+    }
+    match request.loss {
+        Loss::Logistic => {
+            let pos = summary.class_weights.first().copied().unwrap_or(0.0);
+            if pos <= 0.0 || pos >= summary.weight_sum {
+                return Err(Error::data(format!(
+                    "every row of the target '{target}' in {data} is {}; logistic regression needs both 0s and 1s",
+                    if pos <= 0.0 { 0 } else { 1 }
+                )));
+            }
+        }
+        Loss::Softmax if summary.classes.len() < 2 => {
+            return Err(Error::data(format!(
+                "the target '{target}' in {data} has only one class ({}); softmax needs at least two",
+                summary.classes.first().map(String::as_str).unwrap_or("none")
+            )));
+        }
+        _ => {}
+    }
+    Ok(())
 }
 
 fn poisson_overflow(place: &str) -> Error {

@@ -25,6 +25,22 @@ pub struct PassPlan {
     /// When set (by a signal handler), passes stop at the next block boundary with an
     /// [`crate::ErrorKind::Interrupted`] error.
     pub cancel: Option<Arc<AtomicBool>>,
+    /// Live counters for a progress display (none: not counted).
+    pub progress: Option<Arc<PassCounter>>,
+}
+
+/// Live counters of the pass in progress, for a progress display read by another thread
+/// (a ticker): a pass adds one relaxed atomic increment per block, never a lock.
+#[derive(Debug, Default)]
+pub struct PassCounter {
+    /// Passes started through this plan (every pass: statistics, evaluations, extra).
+    pub passes: AtomicU64,
+    /// Rows folded so far in the current pass.
+    pub rows_done: AtomicU64,
+    /// Rows of a whole pass.
+    pub rows_total: AtomicU64,
+    /// Bytes of the data files a whole pass reads (compressed, on disk).
+    pub bytes_total: AtomicU64,
 }
 
 impl PassPlan {
@@ -34,6 +50,7 @@ impl PassPlan {
             shards: source.shards(shards.max(1)),
             threads: threads.max(1),
             cancel: None,
+            progress: None,
         }
     }
 }
@@ -145,6 +162,16 @@ where
         starts.into_iter().map(|s| Mutex::new(Some(s))).collect()
     };
     let block_rows = source.block_rows() as u64;
+    if let Some(p) = &plan.progress {
+        let rows: u64 = plan.shards.iter().flatten().map(|s| s.rows).sum();
+        p.rows_total.store(rows, Ordering::Relaxed);
+        p.bytes_total.store(
+            source.files().iter().map(|f| f.size).sum(),
+            Ordering::Relaxed,
+        );
+        p.rows_done.store(0, Ordering::Relaxed);
+        p.passes.fetch_add(1, Ordering::Relaxed);
+    }
     let next = AtomicUsize::new(0);
     let failed = AtomicBool::new(false);
     let finished = AtomicUsize::new(0);
@@ -205,8 +232,12 @@ where
                     }
                     return Err(Error::interrupted());
                 }
+                let rows = batch.batch.num_rows() as u64;
                 fold(&mut acc, batch)?;
                 blocks_done += 1;
+                if let Some(p) = &plan.progress {
+                    p.rows_done.fetch_add(rows, Ordering::Relaxed);
+                }
                 if want_snapshots {
                     let g = generation.load(Ordering::Acquire);
                     if g > seen {

@@ -60,10 +60,21 @@ fn read_config(path: &Path) -> Result<FitConfig> {
     let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
     toml::from_str(&text).map_err(|e| {
         let (line, col) = e.span().map(|s| line_col(&text, s.start)).unwrap_or((0, 0));
+        // Name the key of that line when the parser's message does not (wrong types).
+        let key = text
+            .lines()
+            .nth(line.saturating_sub(1))
+            .and_then(|l| l.split_once('='))
+            .map(|(k, _)| k.trim().trim_matches('"'))
+            .filter(|k| !k.is_empty() && !e.message().contains(*k));
+        let message = match key {
+            Some(k) => format!("key '{k}': {}", e.message()),
+            None => e.message().to_string(),
+        };
         Error::usage(format!(
             "the settings file {} is wrong at line {line}, column {col}: {}",
             path.display(),
-            e.message()
+            message.trim_end()
         ))
     })
 }

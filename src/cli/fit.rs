@@ -22,6 +22,7 @@ use outcore::{Error, ErrorKind, Result};
 use super::args::{DemoArgs, FitArgs, PredictArgs, ResumeArgs};
 use super::config::{self, FitPlan};
 use super::output;
+use super::progress::Ticker;
 use super::{EXIT_INTERRUPTED, EXIT_NOT_CONVERGED, EXIT_OK};
 
 /// Installs SIGINT/SIGTERM handling: the first signal sets the returned flag (the fit
@@ -54,9 +55,70 @@ struct Reporter<'a> {
     settings: &'a FitSettings,
     data: &'a [String],
     model: &'a Path,
+    /// The earlier fit's run directory, set aside while this fit has accepted no
+    /// iteration yet: put back if the fit fails before one (bad input never destroys an
+    /// earlier run), deleted once the new run holds an accepted iteration.
+    set_aside: Option<PathBuf>,
+    /// An iteration was accepted (or the fit ended): the new run directory stands.
+    accepted: bool,
+    /// The progress display (none with --quiet).
+    ticker: Option<Ticker>,
+}
+
+/// Moves an existing, non-empty run directory out of the way (a rename, so it costs
+/// nothing and keeps every byte and time stamp); `None` when there is nothing to keep.
+fn set_aside_run_dir(run: &Path) -> Result<Option<PathBuf>> {
+    let non_empty = std::fs::read_dir(run).is_ok_and(|mut d| d.next().is_some());
+    if !non_empty {
+        return Ok(None);
+    }
+    let mut name = run
+        .file_name()
+        .map(|n| n.to_os_string())
+        .unwrap_or_default();
+    name.push(format!(".replaced-{}", std::process::id()));
+    let aside = run.with_file_name(name);
+    std::fs::rename(run, &aside).map_err(|e| Error::io(run, e))?;
+    Ok(Some(aside))
 }
 
 impl Reporter<'_> {
+    /// A progress line on stderr (beside the bar when there is one).
+    fn say(&self, text: &str) {
+        match &self.ticker {
+            Some(t) => t.note(text),
+            None => output::note(text),
+        }
+    }
+
+    /// The new run directory stands: the earlier one set aside is deleted.
+    fn keep_new_run(&mut self) {
+        self.accepted = true;
+        if let Some(aside) = self.set_aside.take() {
+            let _ = std::fs::remove_dir_all(aside);
+        }
+    }
+
+    /// The fit failed before accepting an iteration: the new run directory goes and the
+    /// earlier one comes back unchanged.
+    fn restore_old_run(&mut self) {
+        if self.accepted {
+            return;
+        }
+        if let Some(aside) = self.set_aside.take() {
+            self.run_dir = None;
+            let _ = std::fs::remove_dir_all(self.run);
+            if std::fs::rename(&aside, self.run).is_err() {
+                output::warning(&format!(
+                    "the earlier run directory is kept as {}",
+                    aside.display()
+                ));
+            }
+        } else if self.run_dir.take().is_some() {
+            let _ = std::fs::remove_dir_all(self.run);
+        }
+    }
+
     fn event(&mut self, event: FitEvent<'_>) {
         match event {
             FitEvent::Statistics {
@@ -65,7 +127,7 @@ impl Reporter<'_> {
                 seconds,
             } => {
                 if !self.quiet {
-                    output::note(&format!(
+                    self.say(&format!(
                         "read {} rows ({} features, weight sum {}) in {seconds:.2}s; fitting {} with {} shards on {} threads",
                         summary.rows,
                         features,
@@ -75,13 +137,16 @@ impl Reporter<'_> {
                         self.settings.threads
                     ));
                     if summary.skipped_target > 0 {
-                        output::note(&format!(
+                        self.say(&format!(
                             "skipped {} rows with a null target",
                             summary.skipped_target
                         ));
                     }
                 }
-                match RunDir::create(self.run, self.data, self.model, self.settings) {
+                match set_aside_run_dir(self.run).and_then(|aside| {
+                    self.set_aside = aside;
+                    RunDir::create(self.run, self.data, self.model, self.settings)
+                }) {
                     Ok(d) => self.run_dir = Some(d),
                     Err(e) => self.run_error = Some(e),
                 }
@@ -97,7 +162,7 @@ impl Reporter<'_> {
                     } else {
                         ""
                     };
-                    output::note(&format!(
+                    self.say(&format!(
                         "resuming after iteration {iteration} ({passes} passes done{within}) on {} threads",
                         self.settings.threads
                     ));
@@ -107,10 +172,16 @@ impl Reporter<'_> {
                     Err(e) => self.run_error = Some(e),
                 }
             }
-            FitEvent::Warning(w) => output::warning(w),
+            FitEvent::Warning(w) => self.say(&format!("warning: {w}")),
             FitEvent::Iteration(r) => {
+                if !self.accepted {
+                    self.keep_new_run();
+                }
+                if let Some(t) = &self.ticker {
+                    t.set_objective(r.objective);
+                }
                 if !self.quiet {
-                    output::note(&format!(
+                    self.say(&format!(
                         "iter {:>4}  passes {:>4}  objective {:<16}  max|g| {}  step {:<9}  {:.2}s",
                         r.iteration,
                         r.passes,
@@ -130,7 +201,14 @@ impl Reporter<'_> {
     }
 
     /// Writes the model and prints the summary; the exit status.
-    fn finish(self, outcome: Result<FitOutcome>, json: bool) -> Result<i32> {
+    fn finish(mut self, outcome: Result<FitOutcome>, json: bool) -> Result<i32> {
+        if let Some(t) = self.ticker.take() {
+            t.finish();
+        }
+        match &outcome {
+            Err(e) if e.kind() != ErrorKind::Interrupted => self.restore_old_run(),
+            _ => self.keep_new_run(),
+        }
         let outcome = match outcome {
             Err(e) if e.kind() == ErrorKind::Interrupted => {
                 output::note(&format!(
@@ -216,7 +294,9 @@ pub fn run(args: FitArgs) -> Result<i32> {
         run,
         checkpoint_every,
     } = &plan;
+    let ticker = Ticker::start(args.quiet);
     let control = Control {
+        progress: ticker.as_ref().map(Ticker::counter),
         cancel: cancel_on_signals(),
         checkpoint_dir: Some(run.clone()),
         checkpoint_every: Some(*checkpoint_every),
@@ -229,6 +309,9 @@ pub fn run(args: FitArgs) -> Result<i32> {
         settings,
         data,
         model: out,
+        set_aside: None,
+        accepted: false,
+        ticker,
     };
     let outcome = fit::fit(data, settings, &control, &mut |e| reporter.event(e));
     reporter.finish(outcome, args.json)
@@ -244,7 +327,9 @@ pub fn resume(args: ResumeArgs) -> Result<i32> {
         max_seconds: args.max_seconds,
         threads: args.threads,
     };
+    let ticker = Ticker::start(args.quiet);
     let control = Control {
+        progress: ticker.as_ref().map(Ticker::counter),
         cancel: cancel_on_signals(),
         checkpoint_dir: Some(run.clone()),
         checkpoint_every: Some(config::parse_duration(
@@ -267,6 +352,9 @@ pub fn resume(args: ResumeArgs) -> Result<i32> {
         settings: &shown,
         data: &data,
         model: &model,
+        set_aside: None,
+        accepted: true,
+        ticker,
     };
     let outcome = fit::resume(&run, &started_with, &overrides, &control, &mut |e| {
         reporter.event(e)

@@ -8,6 +8,7 @@ mod fit;
 mod inference;
 mod inspect;
 mod output;
+mod progress;
 
 use clap::Parser;
 

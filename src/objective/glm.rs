@@ -168,6 +168,8 @@ pub struct GlmObjective<'a> {
     weight_sum: f64,
     passes: u64,
     last: Option<EvalExtras>,
+    /// The first place any evaluation so far saw a Poisson margin overflow.
+    first_overflow: Option<String>,
     mid_pass: Option<MidPassCheckpoints<'a>>,
     resume_from: Option<PartialPass>,
 }
@@ -191,6 +193,7 @@ impl<'a> GlmObjective<'a> {
             weight_sum,
             passes: 0,
             last: None,
+            first_overflow: None,
             mid_pass: None,
             resume_from: None,
         }
@@ -255,6 +258,13 @@ impl<'a> GlmObjective<'a> {
     /// What the last evaluation saw.
     pub fn last_extras(&self) -> Option<&EvalExtras> {
         self.last.as_ref()
+    }
+
+    /// Where the first evaluation that overflowed (Poisson margin beyond e^z's range)
+    /// met the overflow, if any evaluation did; a line search may have stepped back
+    /// from such a trial point, so the last evaluation alone does not tell.
+    pub fn first_overflow(&self) -> Option<&str> {
+        self.first_overflow.as_deref()
     }
 
     /// The coefficient layout.
@@ -342,6 +352,9 @@ impl Objective for GlmObjective<'_> {
         f += 0.5 * self.ridge * penalty;
         if overflow.is_some() {
             f = f64::INFINITY;
+            if self.first_overflow.is_none() {
+                self.first_overflow = overflow.clone();
+            }
         }
         self.last = Some(EvalExtras {
             x: x.to_vec(),
