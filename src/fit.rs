@@ -13,7 +13,8 @@ use serde::{Deserialize, Serialize};
 
 use crate::checkpoint::{self, Checkpoint, PartialPass, Progress, RunIdentity};
 use crate::features::{self, Design, Feature, FeatureRequest, Summary};
-use crate::model::{FitRecord, Model, Penalty};
+use crate::holdout::HoldoutSettings;
+use crate::model::{FitRecord, HoldoutRecord, Model, Penalty};
 use crate::objective::glm::MidPassCheckpoints;
 use crate::objective::{GlmObjective, Layout, Loss};
 use crate::optim::{Optimizer, Settings, StepOutcome, Stop};
@@ -50,6 +51,9 @@ pub struct FitSettings {
     /// Most dense features the coefficient table is computed for.
     #[serde(default = "default_inference_max_features")]
     pub inference_max_features: usize,
+    /// Rows held out of the training and scored in every pass (`--holdout`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub holdout: Option<HoldoutSettings>,
 }
 
 fn default_inference_max_features() -> usize {
@@ -72,6 +76,7 @@ impl FitSettings {
             block_rows: DEFAULT_BLOCK_ROWS,
             inference: false,
             inference_max_features: default_inference_max_features(),
+            holdout: None,
         }
     }
 
@@ -115,6 +120,9 @@ impl FitSettings {
                 )));
             }
         }
+        if let Some(h) = &self.holdout {
+            h.validate()?;
+        }
         Ok(())
     }
 
@@ -142,6 +150,8 @@ pub enum FitStop {
     /// Unpenalized logistic or softmax on data a hyperplane separates: the coefficients
     /// grow without bound.
     Separable,
+    /// The holdout loss did not improve for `--holdout-patience` accepted iterations.
+    HoldoutStalled,
 }
 
 impl FitStop {
@@ -150,6 +160,7 @@ impl FitStop {
         match self {
             FitStop::Optimizer(s) => s.as_str(),
             FitStop::Separable => "separable",
+            FitStop::HoldoutStalled => "holdout-stalled",
         }
     }
 
@@ -176,6 +187,9 @@ pub struct IterationRecord {
     pub seconds: f64,
     /// History pairs skipped so far.
     pub pairs_skipped: u64,
+    /// Mean weighted loss of the held-out rows at this iterate (with `--holdout`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub holdout_loss: Option<f64>,
 }
 
 /// What the driver reports while it works.
@@ -257,6 +271,43 @@ struct DesignRecord {
     warnings: Vec<String>,
     /// Driver counters that are part of the fit's state (the separation watch).
     separated_iterations: u32,
+    /// The holdout's size and the driver's watch of its loss (with `--holdout`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    holdout: Option<HoldoutWatch>,
+}
+
+/// The held-out rows and the best holdout loss so far; part of the fit's state, saved in
+/// every checkpoint so that a resumed fit stops where the uninterrupted one would.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+struct HoldoutWatch {
+    /// Held-out rows (with a target).
+    rows: u64,
+    /// Their weight.
+    weight: f64,
+    /// Holdout loss at the last accepted iterate (iteration 0: the starting point).
+    last: Option<f64>,
+    /// Lowest holdout loss so far and its iteration.
+    best: Option<f64>,
+    best_iteration: u64,
+    /// Accepted iterations since the best.
+    since_best: u64,
+}
+
+impl HoldoutWatch {
+    /// Takes the holdout loss of accepted iteration `iteration`.
+    fn observe(&mut self, iteration: u64, loss: Option<f64>) {
+        self.last = loss;
+        match loss {
+            Some(h) if self.best.is_none_or(|b| h < b) => {
+                self.best = Some(h);
+                self.best_iteration = iteration;
+                self.since_best = 0;
+            }
+            Some(_) => self.since_best += 1,
+            // Not known (no held-out row): nothing to compare.
+            None => {}
+        }
+    }
 }
 
 /// A fit in progress: data, design, objective layout and where it stands.
@@ -276,14 +327,22 @@ struct Session {
 
 /// The settings that define the objective and the iterates (compared on resume).
 fn objective_settings(settings: &FitSettings) -> serde_json::Value {
-    serde_json::json!({
+    let mut v = serde_json::json!({
         "request": settings.request,
         "ridge": settings.ridge,
         "lasso": settings.lasso,
         "tol": settings.tol,
         "history": settings.history,
         "block_rows": settings.block_rows,
-    })
+    });
+    // Only when set, so that checkpoints of fits without a holdout stay as they were.
+    if let (Some(h), Some(map)) = (&settings.holdout, v.as_object_mut()) {
+        map.insert(
+            "holdout".to_string(),
+            serde_json::to_value(h).unwrap_or(serde_json::Value::Null),
+        );
+    }
+    v
 }
 
 impl Session {
@@ -350,12 +409,25 @@ pub fn fit(
     let source = Source::open_with_block_rows(data, settings.block_rows)?;
     let request = &settings.request;
     let candidates = features::resolve_columns(&source, request)?;
+    let split = settings.holdout.as_ref().map(|h| h.split()).transpose()?;
+    if let Some(split) = &split {
+        split.check_columns(&source)?;
+    }
     let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
     plan.cancel = control.cancel.clone();
     plan.progress = control.progress.clone();
-    let summary = features::collect_stats(&source, &plan, request, &candidates)?;
+    let summary =
+        features::collect_stats_split(&source, &plan, request, &candidates, split.as_ref())?;
     check_rows(&source, request, &summary)?;
-    let (design, warnings) = Design::new(request, &summary)?;
+    let (design, mut warnings) = Design::new(request, &summary)?;
+    let design = design.with_holdout(split);
+    if design.holdout().is_some() && summary.held_out_rows == 0 {
+        warnings.push(
+            "the holdout holds no row (the data are too few for the --holdout fraction); \
+             no holdout loss is reported"
+                .to_string(),
+        );
+    }
     // Refused before any event, so that a fit with nothing to fit writes nothing.
     if design.width() == 0 {
         return Err(Error::data(format!(
@@ -387,6 +459,14 @@ pub fn fit(
         weight_sum: summary.weight_sum,
         warnings,
         separated_iterations: 0,
+        holdout: design.holdout().map(|_| HoldoutWatch {
+            rows: summary.held_out_rows,
+            weight: summary.held_out_weight,
+            last: None,
+            best: None,
+            best_iteration: 0,
+            since_best: 0,
+        }),
     };
     let mut session = Session {
         data: data.to_vec(),
@@ -414,7 +494,12 @@ pub fn fit(
         return Err(poisson_overflow(&place));
     }
     let passes = 1 + objective.passes();
+    // The starting point is iteration 0 of the holdout watch.
+    let start_holdout = objective.holdout_loss_at(&x0);
     drop(objective);
+    if let Some(watch) = session.record.holdout.as_mut() {
+        watch.observe(0, start_holdout);
+    }
     session.save_checkpoint(control, &optimizer, passes)?;
     drive(&mut session, optimizer, passes, None, control, events)
 }
@@ -485,12 +570,17 @@ pub fn resume(
         .enumerate()
         .map(|(i, c)| (c.clone(), i))
         .collect();
+    let split = settings.holdout.as_ref().map(|h| h.split()).transpose()?;
+    if let Some(split) = &split {
+        split.check_columns(&source)?;
+    }
     let design = Design::from_parts(
         request,
         record.classes.clone(),
         record.features.clone(),
         class_index,
-    );
+    )
+    .with_holdout(split);
     let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
     plan.cancel = control.cancel.clone();
     plan.progress = control.progress.clone();
@@ -615,6 +705,15 @@ fn drive(
             }
         };
         if let Some(it) = &last {
+            // Held-out rows were scored in the pass that evaluated the accepted point.
+            let holdout_loss = session
+                .record
+                .holdout
+                .as_ref()
+                .and_then(|_| objective.holdout_loss_at(optimizer.x()));
+            if let Some(watch) = session.record.holdout.as_mut() {
+                watch.observe(it.iteration, holdout_loss);
+            }
             let record = IterationRecord {
                 iteration: it.iteration,
                 passes: passes_now(&objective),
@@ -623,6 +722,7 @@ fn drive(
                 step: it.step,
                 seconds: session.prior_seconds + session.started.elapsed().as_secs_f64(),
                 pairs_skipped: it.pairs_skipped,
+                holdout_loss,
             };
             events(FitEvent::Iteration(&record));
             log.push(record);
@@ -661,6 +761,19 @@ fn drive(
                 break FitStop::Separable;
             }
         }
+        if let (Some(patience), Some(watch)) = (
+            settings.holdout.as_ref().and_then(|h| h.patience),
+            &session.record.holdout,
+        ) {
+            if last.is_some() && watch.since_best >= patience {
+                message = Some(holdout_stalled_message(
+                    watch,
+                    patience,
+                    optimizer.state().iterations,
+                ));
+                break FitStop::HoldoutStalled;
+            }
+        }
         if last.is_some() {
             let passes = passes_now(&objective);
             session.save_checkpoint(control, &optimizer, passes)?;
@@ -678,10 +791,12 @@ fn drive(
     }
     // Standard errors: one extra pass at the optimum; a failure is a warning, not an error.
     let inferred = if settings.inference {
+        // The information matrix of the training rows only.
+        let training = session.design.training_only();
         let req = crate::inference::Request {
             source: &session.source,
             plan: &session.plan,
-            design: &session.design,
+            design: &training,
             layout,
             x: optimizer.x(),
             ridge: settings.ridge,
@@ -715,6 +830,9 @@ fn drive(
         shards: settings.shard_count(),
         history: settings.history,
         warnings,
+        holdout: holdout_record(&settings, session.record.holdout.as_ref(), || {
+            objective.holdout_loss_at(optimizer.x())
+        }),
     };
     let model = Model {
         loss: request.loss,
@@ -795,6 +913,43 @@ fn check_rows(source: &Source, request: &FeatureRequest, summary: &Summary) -> R
         _ => {}
     }
     Ok(())
+}
+
+/// The holdout part of the model file.
+fn holdout_record(
+    settings: &FitSettings,
+    watch: Option<&HoldoutWatch>,
+    final_loss: impl FnOnce() -> Option<f64>,
+) -> Option<HoldoutRecord> {
+    let (h, watch) = (settings.holdout.as_ref()?, watch?);
+    Some(HoldoutRecord {
+        fraction: h.fraction,
+        key: h.key.clone(),
+        patience: h.patience,
+        rows: watch.rows,
+        weight: watch.weight,
+        loss: final_loss().or(watch.last),
+        best_loss: watch.best,
+        best_iteration: watch.best_iteration,
+    })
+}
+
+/// What a `holdout-stalled` stop means, with where the best holdout loss was.
+fn holdout_stalled_message(watch: &HoldoutWatch, patience: u64, iteration: u64) -> String {
+    let at = |v: Option<f64>| v.map_or_else(|| "unknown".to_string(), |v| format!("{v:.6e}"));
+    let best_at = if watch.best_iteration == 0 {
+        "the starting point (iteration 0)".to_string()
+    } else {
+        format!("iteration {}", watch.best_iteration)
+    };
+    format!(
+        "the holdout loss has not improved for {patience} iterations: the best, {}, was at {best_at}; \
+         this model is the last iterate (iteration {iteration}, holdout loss {}), which fits the \
+         training rows more closely but predicts held-out rows worse; a stronger --ridge or \
+         --lasso usually helps",
+        at(watch.best),
+        at(watch.last)
+    )
 }
 
 fn poisson_overflow(place: &str) -> Error {

@@ -51,6 +51,7 @@ pub mod error;
 pub mod evaluate;
 pub mod features;
 pub mod fit;
+pub mod holdout;
 pub mod inference;
 pub mod metrics;
 pub mod model;

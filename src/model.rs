@@ -54,6 +54,32 @@ pub struct FitRecord {
     /// Warnings raised during the fit.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub warnings: Vec<String>,
+    /// The held-out rows and their loss, when the fit held rows out (`--holdout`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub holdout: Option<HoldoutRecord>,
+}
+
+/// The holdout of a fit as recorded in the model file (`fit.holdout`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct HoldoutRecord {
+    /// Share of the rows (or keys) held out.
+    pub fraction: f64,
+    /// The split key column, when the split was by key rather than by row position.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub key: Option<String>,
+    /// Early stop after this many iterations without improvement, if asked for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub patience: Option<u64>,
+    /// Held-out rows (with a target).
+    pub rows: u64,
+    /// Their weight.
+    pub weight: f64,
+    /// Mean weighted loss of the held-out rows at the model's coefficients.
+    pub loss: Option<f64>,
+    /// The lowest holdout loss of any accepted iterate.
+    pub best_loss: Option<f64>,
+    /// The iteration of the lowest holdout loss (0: the starting point).
+    pub best_iteration: u64,
 }
 
 /// The penalty strengths, as in DESIGN §4.
@@ -157,9 +183,16 @@ impl Model {
     }
 
     /// The design of the training run, reading the training data as the fit did (rows
-    /// with a null target skipped when the fit skipped them).
+    /// with a null target skipped when the fit skipped them, held-out rows left out).
     pub fn design_for_training(&self) -> Design {
-        self.design_skipping(self.fit.rows_skipped > 0)
+        let design = self.design_skipping(self.fit.rows_skipped > 0);
+        match &self.fit.holdout {
+            Some(h) => match crate::holdout::RowSplit::new(h.fraction, h.key.clone()) {
+                Ok(split) => design.with_holdout(Some(split)).training_only(),
+                Err(_) => design,
+            },
+            None => design,
+        }
     }
 
     fn design_skipping(&self, skip_missing_target: bool) -> Design {
@@ -344,6 +377,10 @@ impl Model {
         }
         if file.internal.coefficients.iter().any(|v| !v.is_finite()) {
             return Err(Error::format("a coefficient is not a finite number"));
+        }
+        if let Some(h) = &file.fit.holdout {
+            crate::holdout::RowSplit::new(h.fraction, h.key.clone())
+                .map_err(|_| Error::format("its holdout fraction is not between 0 and 1"))?;
         }
         let inference = file
             .inference

@@ -101,6 +101,19 @@ pub struct FitArgs {
     /// Most features the coefficient table of --inference is computed for (default 2000).
     #[arg(long, value_name = "N")]
     pub inference_max_features: Option<usize>,
+    /// Hold this share of the rows out of the training (0 < FRACTION < 1) and report their
+    /// loss at every iteration, scored in the same passes; rows are chosen by a hash of
+    /// file and row position, or of --split-key.
+    #[arg(long, value_name = "FRACTION", allow_negative_numbers = true)]
+    pub holdout: Option<f64>,
+    /// With --holdout: choose held-out rows by the value of this string or integer
+    /// column, so that all rows of one key land on the same side.
+    #[arg(long, value_name = "COL")]
+    pub split_key: Option<String>,
+    /// With --holdout: stop (stop reason holdout-stalled) when the holdout loss has not
+    /// improved for K accepted iterations.
+    #[arg(long, value_name = "K")]
+    pub holdout_patience: Option<u64>,
     /// Run directory for the log and settings (default: next to --out, `MODEL.run`).
     #[arg(long, value_name = "DIR")]
     pub run: Option<PathBuf>,

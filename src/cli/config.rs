@@ -8,6 +8,7 @@ use serde::Deserialize;
 
 use outcore::features::{FeatureRequest, MissingPolicy};
 use outcore::fit::FitSettings;
+use outcore::holdout::HoldoutSettings;
 use outcore::objective::Loss;
 use outcore::{Error, Result};
 
@@ -36,6 +37,9 @@ struct FitConfig {
     standardize: Option<bool>,
     inference: Option<bool>,
     inference_max_features: Option<usize>,
+    holdout: Option<f64>,
+    split_key: Option<String>,
+    holdout_patience: Option<u64>,
     run: Option<PathBuf>,
     out: Option<PathBuf>,
     checkpoint_every: Option<String>,
@@ -169,6 +173,26 @@ pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
         .inference_max_features
         .or(config.inference_max_features)
         .unwrap_or(settings.inference_max_features);
+    let split_key = args.split_key.clone().or(config.split_key);
+    let patience = args.holdout_patience.or(config.holdout_patience);
+    settings.holdout = match args.holdout.or(config.holdout) {
+        Some(fraction) => Some(HoldoutSettings {
+            fraction,
+            key: split_key,
+            patience,
+        }),
+        None if split_key.is_some() => {
+            return Err(Error::usage(
+                "--split-key needs --holdout FRACTION (the share of keys to hold out)",
+            ))
+        }
+        None if patience.is_some() => {
+            return Err(Error::usage(
+                "--holdout-patience needs --holdout FRACTION (the rows whose loss it watches)",
+            ))
+        }
+        None => None,
+    };
     if settings.block_rows == 0 {
         return Err(Error::usage("--block-rows must be at least 1"));
     }

@@ -181,8 +181,12 @@ impl Reporter<'_> {
                     t.set_objective(r.objective);
                 }
                 if !self.quiet {
+                    let holdout = r
+                        .holdout_loss
+                        .map(|h| format!("  holdout {}", output::sig(h, 8)))
+                        .unwrap_or_default();
                     self.say(&format!(
-                        "iter {:>4}  passes {:>4}  objective {:<16}  max|g| {}  step {:<9}  {:.2}s",
+                        "iter {:>4}  passes {:>4}  objective {:<16}  max|g| {}  step {:<9}{holdout}  {:.2}s",
                         r.iteration,
                         r.passes,
                         output::sig(r.objective, 12),
@@ -259,6 +263,7 @@ impl Reporter<'_> {
                 "seconds": f.seconds,
                 "rows": f.rows,
                 "features": model.features.len(),
+                "holdout_loss": f.holdout.as_ref().and_then(|h| h.loss),
             });
             output::line(&summary.to_string());
         }

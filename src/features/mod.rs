@@ -14,6 +14,7 @@ use std::collections::{BTreeSet, HashMap};
 use arrow::array::{Array, Float64Array};
 use serde::{Deserialize, Serialize};
 
+use crate::holdout::RowSplit;
 use crate::objective::Loss;
 use crate::pass::{self, PassPlan};
 use crate::source::{BatchAt, ColumnClass, Source};
@@ -106,6 +107,11 @@ pub struct Summary {
     pub classes: Vec<String>,
     /// Weighted count per class (softmax) or of positives (logistic, one entry).
     pub class_weights: Vec<f64>,
+    /// Rows held out of the training (with a target; not in any statistic above but
+    /// `rows`).
+    pub held_out_rows: u64,
+    /// Sum of the weights of the held-out rows.
+    pub held_out_weight: f64,
 }
 
 /// The fixed transformation from record batches to blocks.
@@ -130,6 +136,10 @@ pub struct Design {
     class_index: HashMap<String, usize>,
     /// Distinct source columns of the features, in order.
     feature_columns: Vec<String>,
+    /// The holdout split, when rows are held out of the training.
+    holdout: Option<RowSplit>,
+    /// With a split: leave held-out rows out of blocks (true) instead of marking them.
+    drop_held_out: bool,
 }
 
 /// A block of rows ready for the kernels: features column by column, labels, weights.
@@ -148,6 +158,9 @@ pub struct Block {
     pub file: usize,
     /// Row number within the file of the block's first row.
     pub first_row: u64,
+    /// Held-out rows (`true`), when the design has a holdout split and some rows of the
+    /// block are held out; empty otherwise (every row is a training row).
+    pub holdout: Vec<bool>,
 }
 
 impl Block {
@@ -165,6 +178,12 @@ impl Block {
         } else {
             self.w[i]
         }
+    }
+
+    /// True when row `i` is held out of the training.
+    #[inline]
+    pub fn is_held_out(&self, i: usize) -> bool {
+        !self.holdout.is_empty() && self.holdout[i]
     }
 }
 
@@ -356,6 +375,13 @@ struct StatsAcc {
     class_weights: HashMap<String, f64>,
     positives: f64,
     first_null: Vec<Option<String>>,
+    held_out_rows: u64,
+    held_out_weight: f64,
+    /// Nulls of each feature in held-out rows (refused like training nulls under
+    /// `--missing error`, since later passes read them).
+    held_out_nulls: Vec<u64>,
+    /// Softmax class labels seen in held-out rows.
+    held_out_labels: BTreeSet<String>,
 }
 
 /// The statistics pass: reads target, weight and every candidate feature once, checks
@@ -366,11 +392,29 @@ pub fn collect_stats(
     request: &FeatureRequest,
     features: &[String],
 ) -> Result<Summary> {
+    collect_stats_split(source, plan, request, features, None)
+}
+
+/// As [`collect_stats`], with the rows that `split` holds out left out of every
+/// statistic (they are counted in `held_out_rows` and `held_out_weight`; their values
+/// are still checked).
+pub fn collect_stats_split(
+    source: &Source,
+    plan: &PassPlan,
+    request: &FeatureRequest,
+    features: &[String],
+    split: Option<&RowSplit>,
+) -> Result<Summary> {
     let mut columns: Vec<&str> = vec![request.target.as_str()];
     if let Some(w) = &request.weight {
         columns.push(w);
     }
     columns.extend(features.iter().map(String::as_str));
+    if let Some(key) = split.and_then(RowSplit::key) {
+        if !columns.contains(&key) {
+            columns.push(key);
+        }
+    }
     let shards = pass::run(
         source,
         plan,
@@ -387,8 +431,12 @@ pub fn collect_stats(
             class_weights: HashMap::new(),
             positives: 0.0,
             first_null: vec![None; features.len()],
+            held_out_rows: 0,
+            held_out_weight: 0.0,
+            held_out_nulls: vec![0; features.len()],
+            held_out_labels: BTreeSet::new(),
         },
-        |acc, at| stats_block(acc, source, request, features, &at),
+        |acc, at| stats_block(acc, source, request, features, split, &at),
     )?;
     let mut total = Summary {
         rows: 0,
@@ -402,7 +450,11 @@ pub fn collect_stats(
         target: Moments::default(),
         classes: Vec::new(),
         class_weights: Vec::new(),
+        held_out_rows: 0,
+        held_out_weight: 0.0,
     };
+    let mut held_out_nulls = vec![0u64; features.len()];
+    let mut held_out_labels = BTreeSet::new();
     let mut labels = BTreeSet::new();
     let mut numeric_labels = BTreeSet::new();
     let mut class_weights: HashMap<String, f64> = HashMap::new();
@@ -426,14 +478,20 @@ pub fn collect_stats(
             *class_weights.entry(k).or_insert(0.0) += v;
         }
         positives += shard.positives;
+        total.held_out_rows += shard.held_out_rows;
+        total.held_out_weight += shard.held_out_weight;
+        for (t, n) in held_out_nulls.iter_mut().zip(&shard.held_out_nulls) {
+            *t += n;
+        }
+        held_out_labels.extend(shard.held_out_labels);
     }
     if request.missing == MissingPolicy::Error {
         for (j, (name, m)) in total.columns.iter().enumerate() {
-            if m.nulls > 0 {
+            if m.nulls + held_out_nulls[j] > 0 {
                 return Err(Error::data(format!(
                     "the feature '{name}' has {} null values, the first at {}; \
                      fill them, drop the column, or use --missing mean",
-                    m.nulls,
+                    m.nulls + held_out_nulls[j],
                     first_null[j].as_deref().unwrap_or("an unknown row")
                 )));
             }
@@ -456,6 +514,13 @@ pub fn collect_stats(
             .iter()
             .map(|c| class_weights.get(c).copied().unwrap_or(0.0))
             .collect();
+        if let Some(c) = held_out_labels.iter().find(|c| !total.classes.contains(c)) {
+            return Err(Error::data(format!(
+                "the class '{c}' of the target '{}' occurs only in held-out rows, so the model \
+                 cannot learn it; hold out fewer rows with --holdout, or split by another --split-key",
+                request.target
+            )));
+        }
     } else if request.loss == Loss::Logistic {
         total.class_weights = vec![positives];
     }
@@ -467,6 +532,7 @@ fn stats_block(
     source: &Source,
     request: &FeatureRequest,
     features: &[String],
+    split: Option<&RowSplit>,
     at: &BatchAt,
 ) -> Result<()> {
     let place = Place {
@@ -498,10 +564,34 @@ fn stats_block(
         }
     }
     let weight_of = |i: usize| weights.as_ref().map_or(1.0, |w| w.value(i));
+    // Held-out rows with a target (rows without one are skipped either way).
+    let mut held = match split {
+        Some(s) => s.mask(source, at)?,
+        None => Vec::new(),
+    };
     for i in 0..n {
         acc.rows += 1;
         if !used[i] {
             acc.skipped += 1;
+            if !held.is_empty() {
+                held[i] = false;
+            }
+            continue;
+        }
+        if !held.is_empty() && held[i] {
+            // Left out of every statistic; only counted (and its class noted).
+            used[i] = false;
+            acc.held_out_rows += 1;
+            acc.held_out_weight += weight_of(i);
+            if request.loss == Loss::Softmax {
+                let label = match &target {
+                    TargetValues::Numbers(v) => Some(numeric_label(v.value(i))),
+                    TargetValues::Labels(v) => v[i].clone(),
+                };
+                if let Some(label) = label {
+                    acc.held_out_labels.insert(label);
+                }
+            }
             continue;
         }
         let w = weight_of(i);
@@ -542,6 +632,12 @@ fn stats_block(
         let m = &mut acc.columns[j];
         for i in 0..n {
             if !used[i] {
+                if !held.is_empty() && held[i] && values.is_null(i) {
+                    acc.held_out_nulls[j] += 1;
+                    if acc.first_null[j].is_none() {
+                        acc.first_null[j] = Some(place.row(i));
+                    }
+                }
                 continue;
             }
             if values.is_null(i) {
@@ -681,7 +777,31 @@ impl Design {
             standardize: request.standardize,
             class_index,
             feature_columns,
+            holdout: None,
+            drop_held_out: false,
         }
+    }
+
+    /// The design with a holdout split: blocks built with the target mark the rows that
+    /// `split` holds out ([`Block::holdout`]), and the objective scores them apart.
+    pub fn with_holdout(mut self, split: Option<RowSplit>) -> Design {
+        self.holdout = split;
+        self.drop_held_out = false;
+        self
+    }
+
+    /// The design reading the training rows only: held-out rows are left out of blocks
+    /// built with the target (for passes that know nothing of the holdout, such as the
+    /// information matrix of `--inference`).
+    pub fn training_only(&self) -> Design {
+        let mut d = self.clone();
+        d.drop_held_out = true;
+        d
+    }
+
+    /// The holdout split, if rows are held out.
+    pub fn holdout(&self) -> Option<&RowSplit> {
+        self.holdout.as_ref()
     }
 
     /// Number of features (columns of the design matrix, intercept not counted).
@@ -701,6 +821,11 @@ impl Design {
             out.push(w);
         }
         out.extend(self.feature_columns.iter().map(String::as_str));
+        if let Some(key) = self.holdout.as_ref().and_then(RowSplit::key) {
+            if !out.contains(&key) {
+                out.push(key);
+            }
+        }
         out
     }
 
@@ -723,12 +848,21 @@ impl Design {
         block.first_row = at.first_row;
         block.y.clear();
         block.w.clear();
+        block.holdout.clear();
         let mut keep: Option<Vec<bool>> = None;
         if with_target {
+            let held = match &self.holdout {
+                Some(split) => split.mask(source, at)?,
+                None => Vec::new(),
+            };
             let target = read_target(self.loss, &self.target, at, place)?;
             let mut labels = Vec::with_capacity(n);
             let mut kept = vec![true; n];
             for (i, k) in kept.iter_mut().enumerate() {
+                if self.drop_held_out && !held.is_empty() && held[i] {
+                    *k = false;
+                    continue;
+                }
                 let label = match &target {
                     TargetValues::Numbers(v) if v.is_valid(i) => {
                         let y = v.value(i);
@@ -765,6 +899,14 @@ impl Design {
                     .zip(&kept)
                     .filter(|(_, k)| **k)
                     .map(|(v, _)| *v)
+                    .collect();
+            }
+            if !self.drop_held_out && held.iter().any(|h| *h) {
+                block.holdout = held
+                    .iter()
+                    .zip(&kept)
+                    .filter(|(_, k)| **k)
+                    .map(|(h, _)| *h)
                     .collect();
             }
             if kept.iter().any(|k| !k) {

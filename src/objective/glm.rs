@@ -81,6 +81,10 @@ struct PassSums {
     wrong: f64,
     /// First row whose Poisson margin overflows, as a message.
     overflow: Option<String>,
+    /// Weighted loss of the held-out rows (scored, not trained on).
+    holdout_loss: f64,
+    /// Weight of the held-out rows.
+    holdout_weight: f64,
     block: Block,
     z: Vec<f64>,
 }
@@ -93,6 +97,8 @@ impl Clone for PassSums {
             grad: self.grad.clone(),
             wrong: self.wrong,
             overflow: self.overflow.clone(),
+            holdout_loss: self.holdout_loss,
+            holdout_weight: self.holdout_weight,
             block: Block::default(),
             z: Vec::new(),
         }
@@ -106,23 +112,30 @@ impl PassSums {
             grad: vec![0.0; dim],
             wrong: 0.0,
             overflow: None,
+            holdout_loss: 0.0,
+            holdout_weight: 0.0,
             block: Block::default(),
             z: Vec::new(),
         }
     }
 
-    /// The sums as saved in a checkpoint: `[loss, wrong, overflowed, gradient…]`.
+    /// The sums as saved in a checkpoint: `[loss, wrong, overflowed, gradient…]`, then
+    /// `[holdout loss, holdout weight]` unless both are +0 (no held-out row read yet).
     fn to_vec(&self) -> Vec<f64> {
-        let mut v = Vec::with_capacity(3 + self.grad.len());
+        let mut v = Vec::with_capacity(5 + self.grad.len());
         v.push(self.loss);
         v.push(self.wrong);
         v.push(if self.overflow.is_some() { 1.0 } else { 0.0 });
         v.extend_from_slice(&self.grad);
+        if self.holdout_loss.to_bits() != 0 || self.holdout_weight.to_bits() != 0 {
+            v.push(self.holdout_loss);
+            v.push(self.holdout_weight);
+        }
         v
     }
 
     fn from_vec(v: &[f64], dim: usize) -> Option<PassSums> {
-        if v.len() != 3 + dim {
+        if v.len() != 3 + dim && v.len() != 5 + dim {
             return None;
         }
         let mut sums = PassSums::empty(dim);
@@ -131,7 +144,11 @@ impl PassSums {
         if v[2] != 0.0 {
             sums.overflow = Some("a row read before the fit was resumed".to_string());
         }
-        sums.grad.copy_from_slice(&v[3..]);
+        sums.grad.copy_from_slice(&v[3..3 + dim]);
+        if v.len() == 5 + dim {
+            sums.holdout_loss = v[3 + dim];
+            sums.holdout_weight = v[4 + dim];
+        }
         Some(sums)
     }
 }
@@ -156,6 +173,20 @@ pub struct EvalExtras {
     pub wrong_share: f64,
     /// Poisson: where the margin overflowed, if it did.
     pub overflow: Option<String>,
+    /// Mean weighted loss of the held-out rows, scored in the same pass (none without a
+    /// holdout, or when no held-out row has weight).
+    pub holdout_loss: Option<f64>,
+    /// Weight of the held-out rows.
+    pub holdout_weight: f64,
+}
+
+/// Holdout losses of recent evaluations kept for lookup by point.
+const HOLDOUT_MEMO: usize = 64;
+
+/// A 64-bit fingerprint of a point (its exact bits).
+fn point_key(x: &[f64]) -> u64 {
+    let bytes: Vec<u8> = x.iter().flat_map(|v| v.to_bits().to_le_bytes()).collect();
+    twox_hash::XxHash3_64::oneshot(&bytes)
 }
 
 /// The objective of DESIGN §4 on streamed data, with ridge; L1 is left to the optimizer.
@@ -172,6 +203,8 @@ pub struct GlmObjective<'a> {
     first_overflow: Option<String>,
     mid_pass: Option<MidPassCheckpoints<'a>>,
     resume_from: Option<PartialPass>,
+    /// `(point fingerprint, holdout loss)` of the last evaluations, newest last.
+    holdout_memo: Vec<(u64, f64)>,
 }
 
 impl<'a> GlmObjective<'a> {
@@ -196,7 +229,22 @@ impl<'a> GlmObjective<'a> {
             first_overflow: None,
             mid_pass: None,
             resume_from: None,
+            holdout_memo: Vec::new(),
         }
+    }
+
+    /// The holdout loss of the most recent evaluation at exactly `x`, if one of the last
+    /// few evaluations was there (the accepted point of an iteration always is).
+    pub fn holdout_loss_at(&self, x: &[f64]) -> Option<f64> {
+        if self.holdout_memo.is_empty() {
+            return None;
+        }
+        let key = point_key(x);
+        self.holdout_memo
+            .iter()
+            .rev()
+            .find(|(k, _)| *k == key)
+            .map(|(_, l)| *l)
     }
 
     /// Takes checkpoints inside long passes.
@@ -327,10 +375,14 @@ impl Objective for GlmObjective<'_> {
         let mut loss_sum = 0.0;
         let mut wrong = 0.0;
         let mut overflow = None;
+        let mut holdout_sum = 0.0;
+        let mut holdout_weight = 0.0;
         grad.fill(0.0);
         for shard in &shards {
             loss_sum += shard.loss;
             wrong += shard.wrong;
+            holdout_sum += shard.holdout_loss;
+            holdout_weight += shard.holdout_weight;
             for (g, s) in grad.iter_mut().zip(&shard.grad) {
                 *g += s;
             }
@@ -356,11 +408,21 @@ impl Objective for GlmObjective<'_> {
                 self.first_overflow = overflow.clone();
             }
         }
+        let holdout_loss = (design.holdout().is_some() && holdout_weight > 0.0)
+            .then(|| holdout_sum / holdout_weight);
+        if let Some(h) = holdout_loss {
+            if self.holdout_memo.len() == HOLDOUT_MEMO {
+                self.holdout_memo.remove(0);
+            }
+            self.holdout_memo.push((point_key(x), h));
+        }
         self.last = Some(EvalExtras {
             x: x.to_vec(),
             mean_loss,
             wrong_share: wrong * inv_w,
             overflow,
+            holdout_loss,
+            holdout_weight,
         });
         Ok(f)
     }
@@ -388,20 +450,23 @@ fn accumulate(
             let z = &mut acc.z[..n];
             let mut sum = 0.0;
             let mut wrong = 0.0;
+            let mut held_sum = 0.0;
+            let mut held_weight = 0.0;
             for i in 0..n {
                 let zi = z[i];
                 let y = block.y[i];
                 let w = block.weight(i);
+                let held = block.is_held_out(i);
                 let (l, d) = match loss {
                     Loss::Logistic => {
-                        if (zi > 0.0) != (y > 0.5) {
+                        if !held && (zi > 0.0) != (y > 0.5) {
                             wrong += w;
                         }
                         loss::logistic(zi, y)
                     }
                     Loss::Squared => loss::squared(zi, y),
                     _ => {
-                        if zi > MAX_EXP_MARGIN && acc.overflow.is_none() {
+                        if !held && zi > MAX_EXP_MARGIN && acc.overflow.is_none() {
                             acc.overflow = Some(format!(
                                 "row {} of {}",
                                 block.first_row + i as u64 + 1,
@@ -411,11 +476,20 @@ fn accumulate(
                         loss::poisson(zi, y)
                     }
                 };
-                sum += w * l;
-                z[i] = w * d;
+                if held {
+                    // Scored, not trained on: no residual, so no gradient.
+                    held_sum += w * l;
+                    held_weight += w;
+                    z[i] = 0.0;
+                } else {
+                    sum += w * l;
+                    z[i] = w * d;
+                }
             }
             acc.loss += sum;
             acc.wrong += wrong;
+            acc.holdout_loss += held_sum;
+            acc.holdout_weight += held_weight;
         }
     }
     let p = layout.width;
@@ -458,6 +532,8 @@ fn softmax_rows(acc: &mut PassSums, block: &Block, layout: Layout) {
     let mut margins = vec![0.0; k];
     let mut sum = 0.0;
     let mut wrong = 0.0;
+    let mut held_sum = 0.0;
+    let mut held_weight = 0.0;
     for i in 0..n {
         for (c, m) in margins.iter_mut().enumerate() {
             *m = if layout.reference {
@@ -473,6 +549,15 @@ fn softmax_rows(acc: &mut PassSums, block: &Block, layout: Layout) {
         let y = block.y[i] as usize;
         let w = block.weight(i);
         let lse = loss::log_sum_exp(&margins);
+        if block.is_held_out(i) {
+            // Scored, not trained on: no residuals, so no gradient.
+            held_sum += w * (lse - margins[y]);
+            held_weight += w;
+            for g in 0..layout.groups {
+                acc.z[g * n + i] = 0.0;
+            }
+            continue;
+        }
         sum += w * (lse - margins[y]);
         let mut best = 0;
         for c in 1..k {
@@ -491,4 +576,6 @@ fn softmax_rows(acc: &mut PassSums, block: &Block, layout: Layout) {
     }
     acc.loss += sum;
     acc.wrong += wrong;
+    acc.holdout_loss += held_sum;
+    acc.holdout_weight += held_weight;
 }
