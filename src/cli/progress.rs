@@ -43,7 +43,7 @@ impl Ticker {
         let bar = std::io::stderr().is_terminal().then(|| {
             let bar = ProgressBar::with_draw_target(Some(0), ProgressDrawTarget::stderr());
             let style = ProgressStyle::with_template(
-                "pass {prefix:>3} [{bar:28}] {percent:>3}%  {human_pos}/{human_len} rows  {per_sec}  ETA {eta}  {msg}",
+                "pass {prefix:>3} [{bar:28}] {percent:>3}%  {human_pos}/{human_len} rows  ETA {eta}  {msg}",
             )
             .unwrap_or_else(|_| ProgressStyle::default_bar())
             .progress_chars("=> ");
@@ -159,7 +159,8 @@ fn tick(
             Some(bar) => {
                 bar.set_position(done.min(total));
                 bar.set_message(format!(
-                    "{megabytes_per_second:.1} MB/s  {}",
+                    "{:.2}M rows/s  {megabytes_per_second:.1} MB/s  {}",
+                    rows_per_second / 1e6,
                     objective_text(objective)
                 ));
             }
