@@ -523,3 +523,55 @@ fn a_damaged_model_file_is_refused() {
         assert!(!scores.exists());
     }
 }
+
+#[test]
+fn decimal_and_integer_features_with_a_boolean_target() {
+    use arrow::array::{BooleanArray, Decimal128Array, Int32Array};
+    let dir = tempfile::tempdir().expect("tempdir");
+    let n = 400;
+    // price in cents as decimal(10, 2), items as int32; y is a boolean.
+    let cents: Vec<i128> = (0..n).map(|i| 100 + ((i * 37) % 900) as i128).collect();
+    let items: Vec<i32> = (0..n).map(|i| ((i * 13) % 7) as i32).collect();
+    let y: Vec<bool> = (0..n)
+        .map(|i| {
+            (cents[i] as f64 / 100.0) * 0.8 - items[i] as f64 * 0.5 + ((i * 17) % 5) as f64 - 4.0
+                > 0.0
+        })
+        .collect();
+    let decimal = Decimal128Array::from(cents.clone())
+        .with_precision_and_scale(10, 2)
+        .expect("decimal");
+    let path = dir.path().join("typed.parquet");
+    write_parquet(
+        &path,
+        vec![
+            ("price", Arc::new(decimal) as ArrayRef),
+            ("items", Arc::new(Int32Array::from(items.clone()))),
+            ("bought", Arc::new(BooleanArray::from(y.clone()))),
+        ],
+        128,
+    );
+    let out = dir.path().join("m.json");
+    let o = outcore(&[
+        "fit",
+        "--data",
+        path.to_str().unwrap(),
+        "--target",
+        "bought",
+        "--ridge",
+        "1e-3",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let m = read_json(&out);
+    // The decimal column is read as its value (cents / 100), not as the raw integer.
+    let mean = m["standardization"]["price"]["mean"].as_f64().unwrap();
+    let expected_mean = cents.iter().map(|c| *c as f64 / 100.0).sum::<f64>() / n as f64;
+    assert!(
+        (mean - expected_mean).abs() < 1e-12,
+        "{mean} vs {expected_mean}"
+    );
+    assert!(m["coefficients"]["price"].as_f64().unwrap() > 0.0);
+    assert!(m["coefficients"]["items"].as_f64().unwrap() < 0.0);
+}
