@@ -356,6 +356,18 @@ impl Session {
         }
     }
 
+    /// The objective over the session's data and design.
+    fn objective(&self) -> GlmObjective<'_> {
+        GlmObjective::new(
+            &self.source,
+            &self.plan,
+            &self.design,
+            self.layout,
+            self.settings.ridge,
+            self.record.weight_sum,
+        )
+    }
+
     fn seconds(&self) -> f64 {
         self.prior_seconds + self.started.elapsed().as_secs_f64()
     }
@@ -379,6 +391,14 @@ impl Session {
         }
         Ok(())
     }
+}
+
+/// The pass plan of a fit: its shard count, threads, cancel flag and progress counter.
+fn pass_plan(source: &Source, settings: &FitSettings, control: &Control) -> PassPlan {
+    let mut plan = PassPlan::new(source, settings.shard_count(), settings.threads);
+    plan.cancel = control.cancel.clone();
+    plan.progress = control.progress.clone();
+    plan
 }
 
 /// Saves the last accepted state (`latest`) together with a pass in progress.
@@ -413,9 +433,7 @@ pub fn fit(
     if let Some(split) = &split {
         split.check_columns(&source)?;
     }
-    let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
-    plan.cancel = control.cancel.clone();
-    plan.progress = control.progress.clone();
+    let plan = pass_plan(&source, settings, control);
     let summary =
         features::collect_stats_split(&source, &plan, request, &candidates, split.as_ref())?;
     check_rows(&source, request, &summary)?;
@@ -481,14 +499,7 @@ pub fn fit(
         latest: Mutex::new(None),
     };
     let optim_settings = optimizer_settings(settings, layout);
-    let mut objective = GlmObjective::new(
-        &session.source,
-        &session.plan,
-        &session.design,
-        layout,
-        settings.ridge,
-        session.record.weight_sum,
-    );
+    let mut objective = session.objective();
     let optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
     if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
         return Err(poisson_overflow(&place));
@@ -581,9 +592,7 @@ pub fn resume(
         class_index,
     )
     .with_holdout(split);
-    let mut plan = PassPlan::new(&source, settings.shard_count(), settings.threads);
-    plan.cancel = control.cancel.clone();
-    plan.progress = control.progress.clone();
+    let plan = pass_plan(&source, &settings, control);
     let layout = Layout::new(
         request.loss,
         design.width(),
@@ -670,6 +679,8 @@ fn drive(
     let penalized = settings.penalized();
     let separable_watch = !penalized && matches!(request.loss, Loss::Logistic | Loss::Softmax);
     let save_partial = |p: PartialPass| session_save_partial(&session.latest, control, p);
+    // Built from the fields, not `session.objective()`: the loop below updates
+    // `session.record` while the objective borrows the data and design.
     let mut objective = GlmObjective::new(
         &session.source,
         &session.plan,

@@ -355,8 +355,9 @@ fn checkpoints_inside_long_passes_are_continued_and_end_bitwise_identical() {
         };
         args.extend(["--checkpoint-every".into(), "3ms".into()]);
         let mut child = spawn(&args);
-        if kills < 6 {
-            std::thread::sleep(full.mul_f64(0.05 + 0.3 * rng.next()));
+        // Keep killing until a resume has continued a pass in progress (bounded).
+        if kills < 20 && !(continued_a_pass && kills >= 3) {
+            std::thread::sleep(full.mul_f64(0.02 + 0.12 * rng.next()));
             if child.try_wait().unwrap().is_none() {
                 child.kill().unwrap();
                 let o = child.wait_with_output().unwrap();

@@ -59,7 +59,7 @@ impl Layout {
 
     /// True for coordinates that are intercepts (never penalized).
     pub fn is_intercept(&self, i: usize) -> bool {
-        i % (1 + self.width) == 0
+        i.is_multiple_of(1 + self.width)
     }
 
     /// Softmax class of group `g`.
