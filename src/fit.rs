@@ -424,6 +424,97 @@ pub fn fit(
     control: &Control,
     events: &mut dyn FnMut(FitEvent<'_>),
 ) -> Result<FitOutcome> {
+    let prepared = prepare(data, settings, control, events)?;
+    fit_prepared(&prepared, settings, &Start::default(), control, events)
+}
+
+/// The data opened and the statistics pass done: what a fit needs before its first
+/// evaluation. Several fits that differ only in their penalty share one (`outcore path`).
+#[derive(Debug, Clone)]
+pub struct Prepared {
+    data: Vec<String>,
+    /// The settings it was prepared with (request, holdout, block size, shards).
+    settings: FitSettings,
+    source: Source,
+    summary: Summary,
+    design: Design,
+    warnings: Vec<String>,
+    started: Instant,
+}
+
+impl Prepared {
+    /// The data, as opened.
+    pub fn source(&self) -> &Source {
+        &self.source
+    }
+
+    /// The fixed design of the statistics pass (with the holdout split, if any).
+    pub fn design(&self) -> &Design {
+        &self.design
+    }
+
+    /// When the preparation began.
+    pub fn started(&self) -> Instant {
+        self.started
+    }
+
+    /// What the statistics pass saw.
+    pub fn summary(&self) -> &Summary {
+        &self.summary
+    }
+
+    /// The coefficient layout of a fit with or without a penalty.
+    pub fn layout(&self, penalized: bool) -> Layout {
+        Layout::new(
+            self.settings.request.loss,
+            self.design.width(),
+            self.design.classes.len(),
+            penalized,
+        )
+    }
+
+    /// The intercept-only starting point of a fit (the null model).
+    pub fn null_point(&self, penalized: bool) -> Result<Vec<f64>> {
+        starting_point(&self.design, &self.summary, self.layout(penalized))
+    }
+
+    /// The gradient of the unpenalized mean training loss at `x` on the internal
+    /// (standardized) scale: one pass.
+    pub fn gradient_at(&self, x: &[f64], penalized: bool, control: &Control) -> Result<Vec<f64>> {
+        use crate::optim::Objective;
+        let plan = pass_plan(&self.source, &self.settings, control);
+        let mut objective = GlmObjective::new(
+            &self.source,
+            &plan,
+            &self.design,
+            self.layout(penalized),
+            0.0,
+            self.summary.weight_sum,
+        );
+        let mut grad = vec![0.0; x.len()];
+        objective.eval(x, &mut grad)?;
+        Ok(grad)
+    }
+}
+
+/// Where a fit on [`Prepared`] data starts, and whether it counts the statistics pass.
+#[derive(Debug, Clone, Default)]
+pub struct Start {
+    /// Internal coefficients to start from (a warm start); none: the null model.
+    pub x: Option<Vec<f64>>,
+    /// Leave the statistics pass out of this fit's pass count and time (it was counted
+    /// by an earlier fit on the same [`Prepared`] data).
+    pub statistics_counted: bool,
+}
+
+/// Opens the data and runs the statistics pass ([`FitEvent::Statistics`] and warnings
+/// are reported here).
+pub fn prepare(
+    data: &[String],
+    settings: &FitSettings,
+    control: &Control,
+    events: &mut dyn FnMut(FitEvent<'_>),
+) -> Result<Prepared> {
     settings.validate()?;
     let started = Instant::now();
     let source = Source::open_with_block_rows(data, settings.block_rows)?;
@@ -462,20 +553,66 @@ pub fn fit(
     for w in &warnings {
         events(FitEvent::Warning(w));
     }
-    let layout = Layout::new(
-        request.loss,
-        design.width(),
-        design.classes.len(),
-        settings.penalized(),
-    );
-    let x0 = starting_point(&design, &summary, layout)?;
+    Ok(Prepared {
+        data: data.to_vec(),
+        settings: settings.clone(),
+        source,
+        summary,
+        design,
+        warnings,
+        started,
+    })
+}
+
+/// Fits on prepared data with `settings` (which may differ from the prepared ones only
+/// in what does not change the data pass: penalties, tolerance, budgets, history,
+/// threads), starting where `start` says.
+pub fn fit_prepared(
+    prepared: &Prepared,
+    settings: &FitSettings,
+    start: &Start,
+    control: &Control,
+    events: &mut dyn FnMut(FitEvent<'_>),
+) -> Result<FitOutcome> {
+    settings.validate()?;
+    let base = &prepared.settings;
+    if settings.request != base.request
+        || settings.holdout != base.holdout
+        || settings.block_rows != base.block_rows
+        || settings.shard_count() != base.shard_count()
+    {
+        return Err(Error::internal(
+            "a fit on prepared data changed the features, holdout, block size or shards",
+        ));
+    }
+    let started = if start.statistics_counted {
+        Instant::now()
+    } else {
+        prepared.started
+    };
+    let source = prepared.source.clone();
+    let design = prepared.design.clone();
+    let summary = &prepared.summary;
+    let plan = pass_plan(&source, settings, control);
+    let layout = prepared.layout(settings.penalized());
+    let x0 = match &start.x {
+        Some(x) if x.len() == layout.dim() => x.clone(),
+        Some(x) => {
+            return Err(Error::internal(format!(
+                "a warm start of {} coefficients where the design needs {}",
+                x.len(),
+                layout.dim()
+            )))
+        }
+        None => starting_point(&design, summary, layout)?,
+    };
     let record = DesignRecord {
         features: design.features.clone(),
         classes: design.classes.clone(),
         rows: summary.rows,
         rows_skipped: summary.skipped_target,
         weight_sum: summary.weight_sum,
-        warnings,
+        warnings: prepared.warnings.clone(),
         separated_iterations: 0,
         holdout: design.holdout().map(|_| HoldoutWatch {
             rows: summary.held_out_rows,
@@ -487,7 +624,7 @@ pub fn fit(
         }),
     };
     let mut session = Session {
-        data: data.to_vec(),
+        data: prepared.data.clone(),
         settings: settings.clone(),
         source,
         plan,
@@ -504,7 +641,8 @@ pub fn fit(
     if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
         return Err(poisson_overflow(&place));
     }
-    let passes = 1 + objective.passes();
+    let statistics_pass = u64::from(!start.statistics_counted);
+    let passes = statistics_pass + objective.passes();
     // The starting point is iteration 0 of the holdout watch.
     let start_holdout = objective.holdout_loss_at(&x0);
     drop(objective);

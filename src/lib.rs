@@ -58,7 +58,9 @@ pub mod model;
 pub mod objective;
 pub mod optim;
 pub mod pass;
+pub mod path;
 pub mod predict;
+pub mod report;
 pub mod run_dir;
 pub mod source;
 

@@ -287,6 +287,64 @@ impl ScoreRanking {
         self.histogram.is_some()
     }
 
+    /// The ROC curve: `(false-positive rate, true-positive rate)` at every threshold,
+    /// from `(0, 0)` (nothing called positive) to `(1, 1)`, weighted. In exact mode one
+    /// point per distinct score (tied scores move together, as in scikit-learn's
+    /// `roc_curve(drop_intermediate=False)`); in histogram mode one point per non-empty
+    /// bin. Empty when either class is missing.
+    pub fn roc(&self) -> Vec<(f64, f64)> {
+        // (positive weight, negative weight) per threshold group, highest score first.
+        let groups: Vec<(f64, f64)> = match &self.histogram {
+            Some(h) => h
+                .pos
+                .iter()
+                .zip(&h.neg)
+                .rev()
+                .filter(|(p, n)| **p > 0.0 || **n > 0.0)
+                .map(|(p, n)| (*p, *n))
+                .collect(),
+            None => {
+                let mut rows = self.exact.clone();
+                rows.sort_unstable_by(|a, b| b.0.total_cmp(&a.0));
+                let mut out = Vec::new();
+                let mut i = 0;
+                while i < rows.len() {
+                    let (mut p, mut n) = (Sum::default(), Sum::default());
+                    let mut j = i;
+                    while j < rows.len() && rows[j].0 == rows[i].0 {
+                        if rows[j].1 > 0.0 {
+                            p.add(rows[j].1);
+                        } else {
+                            n.add(-rows[j].1);
+                        }
+                        j += 1;
+                    }
+                    out.push((p.value(), n.value()));
+                    i = j;
+                }
+                out
+            }
+        };
+        let (mut pos_total, mut neg_total) = (Sum::default(), Sum::default());
+        for (p, n) in &groups {
+            pos_total.add(*p);
+            neg_total.add(*n);
+        }
+        let (pt, nt) = (pos_total.value(), neg_total.value());
+        if pt <= 0.0 || nt <= 0.0 {
+            return Vec::new();
+        }
+        let mut points = Vec::with_capacity(groups.len() + 1);
+        points.push((0.0, 0.0));
+        let (mut tp, mut fp) = (Sum::default(), Sum::default());
+        for (p, n) in groups {
+            tp.add(p);
+            fp.add(n);
+            points.push((fp.value() / nt, tp.value() / pt));
+        }
+        points
+    }
+
     /// The AUC and the calibration table.
     pub fn finish(self) -> (Auc, Vec<CalibrationRow>) {
         match self.histogram {

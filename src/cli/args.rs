@@ -31,11 +31,25 @@ pub enum Command {
     Inspect(InspectArgs),
     /// Write the invented demo data set (a grocery-delivery order log).
     Demo(DemoArgs),
+    /// Fit a grid of penalty strengths, strong to weak, and choose one by the loss of
+    /// held-out rows (needs --holdout).
+    #[command(
+        mut_arg("ridge", |a| a.hide(true)),
+        mut_arg("lasso", |a| a.hide(true)),
+        mut_arg("out", |a| a.hide(true)),
+        mut_arg("run", |a| a.hide(true)),
+        mut_arg("inference", |a| a.hide(true)),
+        mut_arg("inference_max_features", |a| a.hide(true))
+    )]
+    Path(Box<PathArgs>),
+    /// Write one self-contained HTML report (charts as inline SVG) of a fit's or a
+    /// path's run directory.
+    Report(ReportArgs),
 }
 
 /// Flags of `outcore fit`. Every flag can also be set in a `--config` TOML file under
 /// the same name with underscores (`max_passes = 50`); flags override the file.
-#[derive(Debug, Args, Default)]
+#[derive(Debug, Args, Default, Clone)]
 pub struct FitArgs {
     /// Settings file (TOML) with the same keys as these flags; relative paths in it are
     /// relative to the file.
@@ -242,4 +256,53 @@ pub struct DemoArgs {
     /// Most rows in one file.
     #[arg(long, default_value_t = 1_000_000, value_name = "N")]
     pub rows_per_file: u64,
+}
+
+/// Flags of `outcore path`: the fit flags (but the penalty, --out and --run) and the grid.
+#[derive(Debug, Args)]
+pub struct PathArgs {
+    /// Data, target, features, holdout and optimizer settings, as for `outcore fit`.
+    #[command(flatten)]
+    pub fit: FitArgs,
+    /// The penalty the grid scales: ridge, lasso (default) or elastic (with --mix).
+    #[arg(long, value_name = "KIND")]
+    pub penalty: Option<String>,
+    /// With --penalty elastic: the lasso share A of each strength λ (lasso = A·λ,
+    /// ridge = (1 − A)·λ).
+    #[arg(long, value_name = "A", allow_negative_numbers = true)]
+    pub mix: Option<f64>,
+    /// Strengths: START:END:COUNT on a log scale (fitted strongest first), or auto:COUNT
+    /// from the smallest lasso strength where every coefficient is zero (default auto:20
+    /// for lasso and elastic; ridge needs START:END:COUNT).
+    #[arg(long, value_name = "SPEC")]
+    pub grid: Option<String>,
+    /// With --grid auto:COUNT: the last strength over the first (default 1e-3).
+    #[arg(long, value_name = "RATIO", allow_negative_numbers = true)]
+    pub span: Option<f64>,
+    /// Choose the strongest strength whose holdout loss is within one standard error of
+    /// the lowest, instead of the lowest.
+    #[arg(long)]
+    pub one_se: bool,
+    /// Start every strength from the intercept-only model instead of the previous
+    /// solution (for comparisons; costs more passes).
+    #[arg(long)]
+    pub cold: bool,
+    /// Directory for the table (path.json, path.csv), every model and the chosen one.
+    #[arg(long, value_name = "DIR")]
+    pub out_dir: PathBuf,
+}
+
+/// Flags of `outcore report`.
+#[derive(Debug, Args)]
+pub struct ReportArgs {
+    /// A fit's run directory (holds settings.json and log.jsonl) or a path's --out-dir
+    /// (holds path.json).
+    #[arg(value_name = "RUN_DIR")]
+    pub dir: PathBuf,
+    /// Where to write the HTML file.
+    #[arg(long, value_name = "REPORT.html")]
+    pub out: PathBuf,
+    /// How many coefficients the bar chart shows, largest first (default 20).
+    #[arg(long, default_value_t = 20, value_name = "N")]
+    pub top: usize,
 }

@@ -27,7 +27,7 @@ use super::{EXIT_INTERRUPTED, EXIT_NOT_CONVERGED, EXIT_OK};
 
 /// Installs SIGINT/SIGTERM handling: the first signal sets the returned flag (the fit
 /// checkpoints and stops at the next block boundary); a second one exits at once.
-fn cancel_on_signals() -> Option<Arc<AtomicBool>> {
+pub(super) fn cancel_on_signals() -> Option<Arc<AtomicBool>> {
     let flag = Arc::new(AtomicBool::new(false));
     for signal in [SIGINT, SIGTERM] {
         // The conditional exit is registered first so that it only fires on a second signal.
@@ -42,7 +42,7 @@ fn cancel_on_signals() -> Option<Arc<AtomicBool>> {
     Some(flag)
 }
 
-fn absolute(path: &Path) -> PathBuf {
+pub(super) fn absolute(path: &Path) -> PathBuf {
     std::path::absolute(path).unwrap_or_else(|_| path.to_path_buf())
 }
 

@@ -8,7 +8,9 @@ mod fit;
 mod inference;
 mod inspect;
 mod output;
+mod path;
 mod progress;
+mod report;
 
 use clap::Parser;
 
@@ -49,6 +51,8 @@ pub fn main() -> i32 {
         Command::Inference(args) => inference::run(args),
         Command::Inspect(args) => inspect::run(args),
         Command::Demo(args) => fit::demo(args),
+        Command::Path(args) => path::run(*args),
+        Command::Report(args) => report::run(args),
     };
     match outcome {
         Ok(code) => code,
