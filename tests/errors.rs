@@ -752,6 +752,101 @@ fn cases(w: &World) -> Vec<Case> {
         args(&["resume", &World::s(&torn), "--quiet"]),
         &["torn.run", "checkpoint"],
     ));
+
+    // --- path ---
+    let good_s = World::s(&good);
+    let path_dir = World::s(&w.out("path"));
+    let path = |extra: &[&str]| {
+        let mut a = args(&[
+            "path", "--data", &good_s, "--target", "y", "--features", "x1,x2", "--quiet",
+            "--out-dir", &path_dir,
+        ]);
+        a.extend(args(extra));
+        a
+    };
+    out.push(case(
+        "path without a holdout",
+        path(&["--grid", "1:1e-3:3"]),
+        &["--holdout"],
+    ));
+    out.push(case(
+        "path: ridge without a grid",
+        path(&["--holdout", "0.2", "--penalty", "ridge"]),
+        &["--grid"],
+    ));
+    out.push(case(
+        "path: automatic ridge grid",
+        path(&["--holdout", "0.2", "--penalty", "ridge", "--grid", "auto:5"]),
+        &["--grid"],
+    ));
+    out.push(case(
+        "path: grid that is not START:END:COUNT",
+        path(&["--holdout", "0.2", "--grid", "1:2"]),
+        &["--grid", "'1:2'"],
+    ));
+    out.push(case(
+        "path: a grid strength of zero",
+        path(&["--holdout", "0.2", "--grid", "0:1:3"]),
+        &["--grid"],
+    ));
+    out.push(case(
+        "path: elastic net without --mix",
+        path(&["--holdout", "0.2", "--penalty", "elastic"]),
+        &["--mix"],
+    ));
+    out.push(case(
+        "path: --mix out of range",
+        path(&["--holdout", "0.2", "--penalty", "elastic", "--mix", "1.5"]),
+        &["--mix"],
+    ));
+    out.push(case(
+        "path: unknown penalty",
+        path(&["--holdout", "0.2", "--penalty", "bridge"]),
+        &["'bridge'"],
+    ));
+    out.push(case(
+        "path with --ridge",
+        path(&["--holdout", "0.2", "--ridge", "1"]),
+        &["--ridge"],
+    ));
+    out.push(case(
+        "path: --out-dir is a file",
+        args(&[
+            "path", "--data", &good_s, "--target", "y", "--holdout", "0.2", "--quiet",
+            "--out-dir", &World::s(&w.out("model.json")),
+        ]),
+        &["model.json", "--out-dir"],
+    ));
+    out.push(case(
+        "path on a missing target column",
+        args(&[
+            "path", "--data", &good_s, "--target", "nope", "--holdout", "0.2", "--quiet",
+            "--out-dir", &path_dir,
+        ]),
+        &["'nope'"],
+    ));
+
+    // --- report ---
+    out.push(case(
+        "report of a directory that is not a run",
+        args(&[
+            "report",
+            &World::s(&not_run),
+            "--out",
+            &World::s(&w.out("report.html")),
+        ]),
+        &["not_a_run", "settings.json"],
+    ));
+    out.push(case(
+        "report into a missing directory",
+        args(&[
+            "report",
+            &World::s(&w.out("model.run")),
+            "--out",
+            &World::s(&w.out("nowhere/report.html")),
+        ]),
+        &["nowhere"],
+    ));
     out
 }
 
