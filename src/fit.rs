@@ -229,6 +229,8 @@ pub struct FitOutcome {
     pub stop: FitStop,
     /// The log, one record per iteration.
     pub log: Vec<IterationRecord>,
+    /// The L-BFGS history pairs `(s, y)` at the end (for a warm start of a related fit).
+    pub history: Vec<(Vec<f64>, Vec<f64>)>,
 }
 
 /// How a fit is watched from outside: a cancel flag and where to checkpoint.
@@ -505,6 +507,10 @@ pub struct Start {
     /// Leave the statistics pass out of this fit's pass count and time (it was counted
     /// by an earlier fit on the same [`Prepared`] data).
     pub statistics_counted: bool,
+    /// L-BFGS history pairs `(s, y)` to start with instead of none (a warm start that
+    /// also keeps the curvature learnt by an earlier fit); `y` must be gradient changes
+    /// of this fit's smooth objective. Pairs with `sᵀy ≤ 0` are dropped.
+    pub history: Vec<(Vec<f64>, Vec<f64>)>,
 }
 
 /// Opens the data and runs the statistics pass ([`FitEvent::Statistics`] and warnings
@@ -637,9 +643,20 @@ pub fn fit_prepared(
     };
     let optim_settings = optimizer_settings(settings, layout);
     let mut objective = session.objective();
-    let optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
+    let mut optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
     if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
         return Err(poisson_overflow(&place));
+    }
+    if !start.history.is_empty() {
+        let mut state = optimizer.state().clone();
+        for (s, y) in &start.history {
+            let sy: f64 = s.iter().zip(y).map(|(a, b)| a * b).sum();
+            if s.len() == layout.dim() && y.len() == layout.dim() && sy > 0.0 && sy.is_finite() {
+                state.s.push(s.clone());
+                state.y.push(y.clone());
+            }
+        }
+        optimizer = Optimizer::from_state(state)?;
     }
     let statistics_pass = u64::from(!start.statistics_counted);
     let passes = statistics_pass + objective.passes();
@@ -1000,7 +1017,19 @@ fn drive(
         fit,
         inference: inferred.table,
     };
-    Ok(FitOutcome { model, stop, log })
+    let history = optimizer
+        .state()
+        .s
+        .iter()
+        .cloned()
+        .zip(optimizer.state().y.iter().cloned())
+        .collect();
+    Ok(FitOutcome {
+        model,
+        stop,
+        log,
+        history,
+    })
 }
 
 /// The data files for a message: the path of a single file, or the count and the first.

@@ -364,16 +364,22 @@ pub fn run_path(
     })?;
     let mut steps: Vec<PathStep> = Vec::with_capacity(strengths.len());
     let mut fit_passes = 0u64;
+    let layout = prepared.layout(true);
+    let mut pairs: Vec<(Vec<f64>, Vec<f64>)> = Vec::new();
     for (index, &strength) in strengths.iter().enumerate() {
         events(PathEvent::Begin { index, strength })?;
         let settings = step_settings(base, path.kind, strength);
+        let (x, history) = match (path.warm, steps.last()) {
+            (true, Some(prev)) => (
+                Some(predicted_start(&steps, strength, layout)),
+                carried_history(&pairs, prev.model.penalty.ridge, settings.ridge, layout),
+            ),
+            _ => (None, Vec::new()),
+        };
         let start = Start {
-            x: if path.warm {
-                steps.last().map(|s| s.model.internal.clone())
-            } else {
-                None
-            },
+            x,
             statistics_counted: index > 0,
+            history,
         };
         let mut step_control = control.clone();
         step_control.checkpoint_dir = control
@@ -389,6 +395,7 @@ pub fn run_path(
         if let Some(e) = pending.take() {
             return Err(e);
         }
+        pairs = outcome.history.clone();
         let evaluations = outcome.model.fit.passes - u64::from(index == 0);
         fit_passes += evaluations;
         passes += evaluations;
@@ -407,7 +414,6 @@ pub fn run_path(
     }
     // One scoring pass for the standard errors of every strength.
     let internals: Vec<&[f64]> = steps.iter().map(|s| s.model.internal.as_slice()).collect();
-    let layout = prepared.layout(true);
     let scored = holdout_losses(prepared.source(), prepared.design(), layout, &internals)?;
     passes += 1;
     for (step, acc) in steps.iter_mut().zip(&scored) {
@@ -434,6 +440,67 @@ pub fn run_path(
         fit_passes,
         seconds: prepared_seconds(&prepared),
     })
+}
+
+/// The start of the next strength: the previous solution, moved along the secant of
+/// the last two solutions in `log λ` (a first-order predictor of the solution path).
+/// With lasso a coordinate is moved only when it is non-zero in both, so exact zeros stay
+/// zero unless the fit moves them; the secant is also dropped for coordinates where it
+/// would flip a sign.
+fn predicted_start(steps: &[PathStep], strength: f64, layout: Layout) -> Vec<f64> {
+    let last = &steps[steps.len() - 1];
+    let mut x = last.model.internal.clone();
+    let Some(before) = steps.len().checked_sub(2).map(|i| &steps[i]) else {
+        return x;
+    };
+    let t = (strength.ln() - last.strength.ln()) / (last.strength.ln() - before.strength.ln());
+    if !(t.is_finite() && t > 0.0) {
+        return x;
+    }
+    let (a, b) = (&before.model.internal, &last.model.internal);
+    for i in 0..x.len() {
+        let moved = b[i] + t * (b[i] - a[i]);
+        let lasso_zero = last.model.penalty.lasso > 0.0 && (a[i] == 0.0 || b[i] == 0.0);
+        if !layout.is_intercept(i) && lasso_zero {
+            continue;
+        }
+        if moved.is_finite() && (moved * b[i] > 0.0 || layout.is_intercept(i)) {
+            x[i] = moved;
+        }
+    }
+    x
+}
+
+/// The previous strength's L-BFGS pairs for the next one. The loss part of the
+/// objective is the same; only the ridge term `ridge/2 · ‖β‖²` changes, whose gradient
+/// change along a step `s` is `ridge · s` on the penalized coordinates, so each `y`
+/// gains `(new − old) · s` there and the pairs stay exact gradient changes of the new
+/// objective (lasso pairs are of the smooth part and carry over unchanged).
+fn carried_history(
+    pairs: &[(Vec<f64>, Vec<f64>)],
+    old_ridge: f64,
+    new_ridge: f64,
+    layout: Layout,
+) -> Vec<(Vec<f64>, Vec<f64>)> {
+    let delta = new_ridge - old_ridge;
+    pairs
+        .iter()
+        .map(|(s, y)| {
+            let y = y
+                .iter()
+                .zip(s)
+                .enumerate()
+                .map(|(i, (yi, si))| {
+                    if layout.is_intercept(i) {
+                        *yi
+                    } else {
+                        yi + delta * si
+                    }
+                })
+                .collect();
+            (s.clone(), y)
+        })
+        .collect()
 }
 
 fn prepared_seconds(prepared: &Prepared) -> f64 {

@@ -758,8 +758,16 @@ fn cases(w: &World) -> Vec<Case> {
     let path_dir = World::s(&w.out("path"));
     let path = |extra: &[&str]| {
         let mut a = args(&[
-            "path", "--data", &good_s, "--target", "y", "--features", "x1,x2", "--quiet",
-            "--out-dir", &path_dir,
+            "path",
+            "--data",
+            &good_s,
+            "--target",
+            "y",
+            "--features",
+            "x1,x2",
+            "--quiet",
+            "--out-dir",
+            &path_dir,
         ]);
         a.extend(args(extra));
         a
@@ -812,16 +820,32 @@ fn cases(w: &World) -> Vec<Case> {
     out.push(case(
         "path: --out-dir is a file",
         args(&[
-            "path", "--data", &good_s, "--target", "y", "--holdout", "0.2", "--quiet",
-            "--out-dir", &World::s(&w.out("model.json")),
+            "path",
+            "--data",
+            &good_s,
+            "--target",
+            "y",
+            "--holdout",
+            "0.2",
+            "--quiet",
+            "--out-dir",
+            &World::s(&w.out("model.json")),
         ]),
         &["model.json", "--out-dir"],
     ));
     out.push(case(
         "path on a missing target column",
         args(&[
-            "path", "--data", &good_s, "--target", "nope", "--holdout", "0.2", "--quiet",
-            "--out-dir", &path_dir,
+            "path",
+            "--data",
+            &good_s,
+            "--target",
+            "nope",
+            "--holdout",
+            "0.2",
+            "--quiet",
+            "--out-dir",
+            &path_dir,
         ]),
         &["'nope'"],
     ));

@@ -125,7 +125,12 @@ fn chosen_ridge_strength_matches_a_brute_force_grid_on_breast_cancer() {
             "--out".into(),
             s(&model),
         ]);
-        assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+        assert_eq!(
+            o.status.code(),
+            Some(0),
+            "{}",
+            String::from_utf8_lossy(&o.stderr)
+        );
         let scores = dir.path().join(format!("scores{i}.parquet"));
         common::predict(&model, &[&data], &scores, &[]);
         let loss = holdout_log_loss(&scores, &labels, &split);
@@ -153,7 +158,11 @@ fn chosen_ridge_strength_matches_a_brute_force_grid_on_breast_cancer() {
         .min_by(|a, b| a.1.total_cmp(b.1))
         .map(|(i, _)| i)
         .expect("a best strength");
-    assert_eq!(table["best"].as_u64(), Some(best as u64), "brute force: {brute:?}");
+    assert_eq!(
+        table["best"].as_u64(),
+        Some(best as u64),
+        "brute force: {brute:?}"
+    );
     assert_eq!(table["chosen"].as_u64(), Some(best as u64));
     assert_eq!(summary["chosen"].as_u64(), Some(best as u64));
     // The best is inside the grid, not at an end (otherwise the test shows little).
@@ -170,7 +179,10 @@ fn chosen_ridge_strength_matches_a_brute_force_grid_on_breast_cancer() {
     let best_line: Vec<&str> = lines[1 + best].split(',').collect();
     assert_eq!(best_line[10], "1");
     let csv_loss: f64 = best_line[4].parse().expect("a number");
-    assert_eq!(csv_loss, steps[best]["holdout_loss"].as_f64().expect("loss"));
+    assert_eq!(
+        csv_loss,
+        steps[best]["holdout_loss"].as_f64().expect("loss")
+    );
 }
 
 #[test]
@@ -250,7 +262,12 @@ fn lasso_path_starts_where_every_coefficient_is_zero() {
         "--out".into(),
         s(&model),
     ]);
-    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
     let m = read_json(&model);
     let nonzero = m["coefficients"]
         .as_object()
@@ -258,9 +275,15 @@ fn lasso_path_starts_where_every_coefficient_is_zero() {
         .values()
         .filter(|v| v.as_f64() != Some(0.0))
         .count();
-    assert!(nonzero >= 1, "no coefficient left zero just below the start");
+    assert!(
+        nonzero >= 1,
+        "no coefficient left zero just below the start"
+    );
     // Weaker strengths keep more coefficients.
-    let counts: Vec<u64> = steps.iter().map(|s| s["nonzero"].as_u64().expect("n")).collect();
+    let counts: Vec<u64> = steps
+        .iter()
+        .map(|s| s["nonzero"].as_u64().expect("n"))
+        .collect();
     assert!(counts.last() > counts.first(), "{counts:?}");
     // Every strength has its own run directory with a log.
     for step in steps {
@@ -289,7 +312,10 @@ fn a_refused_path_leaves_an_earlier_out_dir_alone() {
         &["--penalty", "ridge", "--grid", "1:1e-2:3"],
     ));
     assert_eq!(o.status.code(), Some(2));
-    assert_eq!(std::fs::read(out_dir.join("path.json")).expect("kept"), before);
+    assert_eq!(
+        std::fs::read(out_dir.join("path.json")).expect("kept"),
+        before
+    );
     // No staging directory is left behind.
     let names: Vec<String> = std::fs::read_dir(dir.path())
         .expect("list")
@@ -307,4 +333,53 @@ fn a_refused_path_leaves_an_earlier_out_dir_alone() {
     ));
     let table = read_json(&out_dir.join("path.json"));
     assert_eq!(table["steps"].as_array().map(Vec::len), Some(4));
+}
+
+#[test]
+fn an_interrupted_path_exits_130_and_keeps_the_earlier_out_dir() {
+    let dir = tempfile::tempdir().expect("tempdir");
+    let out_dir = dir.path().join("path");
+    run_json(&path_args(
+        &breast_cancer(),
+        &out_dir,
+        &["--penalty", "ridge", "--grid", "1:1e-2:3"],
+    ));
+    let before = std::fs::read(out_dir.join("path.json")).expect("path.json");
+    // A long path: many strengths at a tight tolerance.
+    let args = path_args(
+        &breast_cancer(),
+        &out_dir,
+        &["--penalty", "ridge", "--grid", "1:1e-3:400"],
+    );
+    let child = std::process::Command::new(common::outcore_bin())
+        .args(&args)
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("spawn");
+    let staging = dir.path().join(format!("path.partial-{}", child.id()));
+    let deadline = std::time::Instant::now() + std::time::Duration::from_secs(120);
+    while !staging.join("models").join("s002.json").exists() && std::time::Instant::now() < deadline
+    {
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+    std::process::Command::new("kill")
+        .args(["-INT", &child.id().to_string()])
+        .status()
+        .expect("kill");
+    let o = child.wait_with_output().expect("wait");
+    let err = String::from_utf8_lossy(&o.stderr).into_owned();
+    if o.status.code() == Some(0) {
+        // The path finished before the signal arrived.
+        return;
+    }
+    assert_eq!(o.status.code(), Some(130), "{err}");
+    assert!(o.stdout.is_empty(), "an interrupted path prints no summary");
+    assert_eq!(
+        std::fs::read(out_dir.join("path.json")).expect("kept"),
+        before,
+        "the earlier out-dir changed"
+    );
+    assert!(staging.join("models").join("s001.json").is_file(), "{err}");
+    assert!(err.contains(&staging.display().to_string()), "{err}");
 }

@@ -33,7 +33,10 @@ pub const PATH_FORMAT: &str = "outcore-path/1";
 
 /// A sibling of `dir` named `NAME.SUFFIX-PID`.
 fn sibling(dir: &Path, suffix: &str) -> PathBuf {
-    let mut name = dir.file_name().map(|n| n.to_os_string()).unwrap_or_default();
+    let mut name = dir
+        .file_name()
+        .map(|n| n.to_os_string())
+        .unwrap_or_default();
     name.push(format!(".{suffix}-{}", std::process::id()));
     dir.with_file_name(name)
 }
@@ -239,11 +242,14 @@ impl Writer<'_> {
 
     fn event(&mut self, event: PathEvent<'_>) -> Result<()> {
         match event {
-            PathEvent::Fit(_, FitEvent::Statistics {
-                summary,
-                features,
-                seconds,
-            }) => {
+            PathEvent::Fit(
+                _,
+                FitEvent::Statistics {
+                    summary,
+                    features,
+                    seconds,
+                },
+            ) => {
                 self.say(&format!(
                     "read {} rows ({} features, {} held out) in {seconds:.2}s",
                     summary.rows, features, summary.held_out_rows
@@ -264,14 +270,20 @@ impl Writer<'_> {
                 auto_start,
             } => {
                 if self.staging.exists() {
-                    std::fs::remove_dir_all(self.staging).map_err(|e| Error::io(self.staging, e))?;
+                    std::fs::remove_dir_all(self.staging)
+                        .map_err(|e| Error::io(self.staging, e))?;
                 }
                 std::fs::create_dir_all(self.staging.join("models"))
                     .map_err(|e| Error::io(self.staging, e))?;
                 self.created = true;
                 self.count = strengths.len();
                 let from = auto_start
-                    .map(|s| format!(" (automatic start {}: every coefficient zero)", output::sig(s, 6)))
+                    .map(|s| {
+                        format!(
+                            " (automatic start {}: every coefficient zero)",
+                            output::sig(s, 6)
+                        )
+                    })
                     .unwrap_or_default();
                 self.say(&format!(
                     "{} strengths of {} from {} to {}{from}",

@@ -115,7 +115,9 @@ pub fn read_inputs(dir: &Path) -> Result<Inputs> {
                 )
             })
             .collect();
-        let chosen = v["chosen"].as_u64().ok_or_else(|| bad("the chosen strength"))? as usize;
+        let chosen = v["chosen"]
+            .as_u64()
+            .ok_or_else(|| bad("the chosen strength"))? as usize;
         let best = v["best"].as_u64().ok_or_else(|| bad("the best strength"))? as usize;
         if chosen >= steps.len() || best >= steps.len() {
             return Err(bad("a valid chosen strength"));
@@ -203,7 +205,9 @@ impl ScoredRows {
     pub fn describe(self) -> &'static str {
         match self {
             ScoredRows::HeldOut => "held-out rows",
-            ScoredRows::Training => "training rows (the fit had no holdout, so these are not out-of-sample)",
+            ScoredRows::Training => {
+                "training rows (the fit had no holdout, so these are not out-of-sample)"
+            }
         }
     }
 }
@@ -272,7 +276,10 @@ pub fn score(model: &Model, source: &Source) -> Result<Scoring> {
     let columns: Vec<&str> = columns.iter().map(String::as_str).collect();
     let layout = model.layout;
     let k = model.classes.len();
-    let mut binary = (BinaryMetrics::default(), ScoreRanking::new(REPORT_AUC_MEMORY));
+    let mut binary = (
+        BinaryMetrics::default(),
+        ScoreRanking::new(REPORT_AUC_MEMORY),
+    );
     let mut softmax = SoftmaxMetrics::new(k.max(2));
     let mut sample: Vec<(f64, f64, f64)> = Vec::new();
     let mut seen = 0u64;
@@ -639,14 +646,20 @@ pub fn render(inputs: &Inputs, scoring: &Scoring, top: usize, notes: &[String]) 
 }
 
 fn figure(svg: String, caption: &str) -> String {
-    format!("<figure>{svg}<figcaption>{}</figcaption></figure>", esc(caption))
+    format!(
+        "<figure>{svg}<figcaption>{}</figcaption></figure>",
+        esc(caption)
+    )
 }
 
 fn convergence(log: &[IterationRecord]) -> String {
     if log.is_empty() {
         return "<p class=\"note\">The log holds no iteration.</p>".into();
     }
-    let best = log.iter().map(|r| r.objective).fold(f64::INFINITY, f64::min);
+    let best = log
+        .iter()
+        .map(|r| r.objective)
+        .fold(f64::INFINITY, f64::min);
     let gap: Vec<(f64, f64)> = log
         .iter()
         .map(|r| (r.passes as f64, r.objective - best))
@@ -865,7 +878,9 @@ fn calibration_chart(rows: &[CalibrationRow], scoring: &Scoring) -> String {
         callouts: Vec::new(),
         diagonal: true,
     };
-    let mut table = String::from("<table><tr><th>decile</th><th>rows</th><th>mean predicted</th><th>observed</th></tr>");
+    let mut table = String::from(
+        "<table><tr><th>decile</th><th>rows</th><th>mean predicted</th><th>observed</th></tr>",
+    );
     for r in rows {
         let _ = write!(
             table,
@@ -886,7 +901,12 @@ fn calibration_chart(rows: &[CalibrationRow], scoring: &Scoring) -> String {
     ) + &table
 }
 
-fn regression_chart(m: &Model, bins: &[(f64, f64, f64)], sampled: bool, scoring: &Scoring) -> String {
+fn regression_chart(
+    m: &Model,
+    bins: &[(f64, f64, f64)],
+    sampled: bool,
+    scoring: &Scoring,
+) -> String {
     let pts: Vec<(f64, f64)> = bins.iter().map(|b| (b.0, b.1)).collect();
     let scale = Scale::linear_for(pts.iter().flat_map(|p| [p.0, p.1]));
     let what = if m.loss == Loss::Poisson {

@@ -65,7 +65,11 @@ impl Scale {
     /// A log scale covering the positive `values`, widened to whole powers of ten.
     pub fn log_for(values: impl IntoIterator<Item = f64>) -> Scale {
         let (lo, hi) = range(values.into_iter().filter(|v| *v > 0.0 && v.is_finite()));
-        let (lo, hi) = if lo.is_finite() { (lo, hi) } else { (1.0, 10.0) };
+        let (lo, hi) = if lo.is_finite() {
+            (lo, hi)
+        } else {
+            (1.0, 10.0)
+        };
         let mut lo = 10f64.powf(lo.log10().floor());
         let mut hi = 10f64.powf(hi.log10().ceil());
         if lo >= hi {
@@ -353,7 +357,11 @@ impl Chart {
                 );
             }
             if matches!(series.mark, Mark::Points | Mark::LinePoints) || pts.len() == 1 {
-                let _ = write!(s, "<g class=\"points\" data-series=\"{}\" fill=\"{colour}\">", esc(&series.label));
+                let _ = write!(
+                    s,
+                    "<g class=\"points\" data-series=\"{}\" fill=\"{colour}\">",
+                    esc(&series.label)
+                );
                 for (x, y) in &pts {
                     let _ = write!(s, "<circle cx=\"{x:.2}\" cy=\"{y:.2}\" r=\"3.5\"/>");
                 }
@@ -452,7 +460,11 @@ impl Bars {
         let lim = (max / step).ceil() * step;
         let (lo, hi) = (
             if any_negative { -lim } else { 0.0 },
-            if any_positive || !any_negative { lim } else { 0.0 },
+            if any_positive || !any_negative {
+                lim
+            } else {
+                0.0
+            },
         );
         let px = |v: f64| x0 + (v - lo) / (hi - lo) * (x1 - x0);
         let mut s = String::new();
