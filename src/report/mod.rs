@@ -561,7 +561,7 @@ pub fn render(inputs: &Inputs, scoring: &Scoring, top: usize, notes: &[String]) 
             format!(
                 "{} rows ({}% of the data{})",
                 ho.rows,
-                n(100.0 * ho.fraction),
+                (100.0 * ho.fraction * 1e6).round() / 1e6,
                 ho.key
                     .as_ref()
                     .map(|k| format!(", by key '{k}'"))

@@ -11,7 +11,7 @@ use std::fmt::Write;
 pub const WIDTH: f64 = 720.0;
 /// See [`WIDTH`].
 pub const HEIGHT: f64 = 400.0;
-const LEFT: f64 = 92.0;
+const LEFT: f64 = 108.0;
 const RIGHT: f64 = 24.0;
 const TOP: f64 = 36.0;
 const BOTTOM: f64 = 58.0;
@@ -302,7 +302,7 @@ impl Chart {
         );
         let _ = write!(
             s,
-            "<text transform=\"translate(18 {:.1}) rotate(-90)\" text-anchor=\"middle\" font-size=\"13\" fill=\"#222\">{}</text>",
+            "<text transform=\"translate(16 {:.1}) rotate(-90)\" text-anchor=\"middle\" font-size=\"13\" fill=\"#222\">{}</text>",
             (y0 + y1) / 2.0,
             esc(&self.y_label)
         );
