@@ -445,9 +445,10 @@ pub fn write_report(dir: &Path, out: &Path, top: usize) -> Result<Written> {
     let source = Source::open(&inputs.data)?;
     let mut written = Written::default();
     if source.fingerprint() != inputs.model.fit.data_fingerprint {
-        written.notes.push(format!(
+        written.notes.push(
             "the data of the run have changed since the fit (their fingerprint differs); the charts of predictions use the data as they are now"
-        ));
+                .to_string(),
+        );
     }
     let scoring = score(&inputs.model, &source)?;
     written.notes.push(format!(
@@ -637,9 +638,9 @@ pub fn render(inputs: &Inputs, scoring: &Scoring, top: usize, notes: &[String]) 
     }
     h.push_str("<h2>Largest coefficients</h2>");
     h.push_str(&coefficient_chart(m, top));
-    let _ = write!(
+    let _ = writeln!(
         h,
-        "<p class=\"lead\" style=\"margin-top:28px\">Written by outcore {}.</p></body></html>\n",
+        "<p class=\"lead\" style=\"margin-top:28px\">Written by outcore {}.</p></body></html>",
         env!("CARGO_PKG_VERSION")
     );
     h
