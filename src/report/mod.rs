@@ -543,8 +543,8 @@ pub fn render(inputs: &Inputs, scoring: &Scoring, top: usize, notes: &[String]) 
     }
     row("features", m.features.len().to_string());
     row(
-        "rows (training)",
-        format!("{} (weight {})", f.rows, n(f.weight_sum)),
+        "rows read",
+        format!("{} (training weight {})", f.rows, n(f.weight_sum)),
     );
     row(
         "penalty",
