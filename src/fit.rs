@@ -54,6 +54,16 @@ pub struct FitSettings {
     /// Rows held out of the training and scored in every pass (`--holdout`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub holdout: Option<HoldoutSettings>,
+    /// Most memory in MB for the per-shard gradient buffers (`--gradient-memory`).
+    #[serde(default = "default_gradient_memory_mb")]
+    pub gradient_memory_mb: f64,
+}
+
+/// Default bound of the per-shard gradient buffers, in MB.
+pub const DEFAULT_GRADIENT_MEMORY_MB: f64 = 2048.0;
+
+fn default_gradient_memory_mb() -> f64 {
+    DEFAULT_GRADIENT_MEMORY_MB
 }
 
 fn default_inference_max_features() -> usize {
@@ -77,6 +87,7 @@ impl FitSettings {
             inference: false,
             inference_max_features: default_inference_max_features(),
             holdout: None,
+            gradient_memory_mb: DEFAULT_GRADIENT_MEMORY_MB,
         }
     }
 
@@ -122,6 +133,44 @@ impl FitSettings {
         }
         if let Some(h) = &self.holdout {
             h.validate()?;
+        }
+        if !(self.gradient_memory_mb.is_finite() && self.gradient_memory_mb > 0.0) {
+            return Err(Error::usage(format!(
+                "--gradient-memory must be a positive number of MB, not {}",
+                self.gradient_memory_mb
+            )));
+        }
+        if let Some(sparse) = &self.request.sparse {
+            let design = crate::features::hashing::SparseDesign::new(sparse)?;
+            if self.inference {
+                return Err(Error::usage(
+                    "--inference computes standard errors for dense models only; a model with \
+                     hashed or sparse features has too many weights for an information matrix; \
+                     fit without --inference (or without --categorical/--cross/--sparse-vector)",
+                ));
+            }
+            // At least one group of sparse coordinates per shard (softmax needs more,
+            // checked again once the classes are known).
+            self.check_gradient_memory(1 + design.dim)?;
+        }
+        Ok(())
+    }
+
+    /// Refuses a fit whose per-shard gradient buffers (`shards × dim × 8` bytes) would
+    /// exceed `--gradient-memory`.
+    pub fn check_gradient_memory(&self, dim: usize) -> Result<()> {
+        let shards = self.shard_count();
+        let bytes = shards as f64 * dim as f64 * 8.0;
+        let limit = self.gradient_memory_mb * 1024.0 * 1024.0;
+        if bytes > limit {
+            let bits = self.request.sparse.as_ref().map_or(0, |s| s.bits);
+            return Err(Error::usage(format!(
+                "the per-shard gradient buffers would take {:.0} MB ({shards} shards × {dim} \
+                 coefficients × 8 bytes), over the limit of {:.0} MB; use fewer --hash-bits \
+                 (now {bits}), fewer --threads or --shards, or raise --gradient-memory",
+                bytes / (1024.0 * 1024.0),
+                self.gradient_memory_mb
+            )));
         }
         Ok(())
     }
@@ -208,6 +257,8 @@ pub enum FitEvent<'a> {
     Warning(&'a str),
     /// An iteration was accepted.
     Iteration(&'a IterationRecord),
+    /// Something worth a line in the log (such as the memory of a sparse design).
+    Note(&'a str),
     /// A resumed fit has read its checkpoint and goes on from this iteration.
     Resumed {
         /// Iterations done before the checkpoint.
@@ -274,6 +325,9 @@ struct DesignRecord {
     /// The holdout's size and the driver's watch of its loss (with `--holdout`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     holdout: Option<HoldoutWatch>,
+    /// Most frequent values of each hashed feature (for reading the model).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    frequent: Vec<crate::weights_file::Frequent>,
 }
 
 /// The held-out rows and the best holdout loss so far; part of the fit's state, saved in
@@ -447,7 +501,7 @@ pub fn fit(
         );
     }
     // Refused before any event, so that a fit with nothing to fit writes nothing.
-    if design.width() == 0 {
+    if design.width() == 0 && design.sparse_dim() == 0 {
         return Err(Error::data(format!(
             "no usable feature is left in {}: every candidate ({}) is constant or empty in the rows used; name other columns with --features",
             describe_files(&source),
@@ -467,7 +521,22 @@ pub fn fit(
         design.width(),
         design.classes.len(),
         settings.penalized(),
-    );
+    )
+    .with_sparse(design.sparse_dim());
+    if layout.sparse > 0 {
+        settings.check_gradient_memory(layout.dim())?;
+        let memory =
+            crate::objective::sparse_kernel::gradient_memory(settings.shard_count(), layout);
+        let note = format!(
+            "sparse design: {} coefficients ({} sparse per output); per-shard gradient buffers {:.1} MB ({} shards), L-BFGS history {:.1} MB",
+            layout.dim(),
+            layout.sparse,
+            memory as f64 / 1048576.0,
+            settings.shard_count(),
+            (2 * settings.history * layout.dim() * 8) as f64 / 1048576.0
+        );
+        events(FitEvent::Note(&note));
+    }
     let x0 = starting_point(&design, &summary, layout)?;
     let record = DesignRecord {
         features: design.features.clone(),
@@ -485,6 +554,15 @@ pub fn fit(
             best_iteration: 0,
             since_best: 0,
         }),
+        frequent: match &design.sparse {
+            Some(s) => s
+                .hashed
+                .iter()
+                .zip(&summary.frequent)
+                .map(|(f, sk)| crate::weights_file::Frequent::of_sketch(&f.name, sk))
+                .collect(),
+            None => Vec::new(),
+        },
     };
     let mut session = Session {
         data: data.to_vec(),
@@ -598,7 +676,8 @@ pub fn resume(
         design.width(),
         design.classes.len(),
         settings.penalized(),
-    );
+    )
+    .with_sparse(design.sparse_dim());
     let mut session = Session {
         data: cp.identity.data.clone(),
         settings: settings.clone(),
@@ -861,6 +940,14 @@ fn drive(
         },
         fit,
         inference: inferred.table,
+        sparse: settings
+            .request
+            .sparse
+            .as_ref()
+            .map(|r| crate::model::SparseModel {
+                request: r.clone(),
+                frequent: session.record.frequent.clone(),
+            }),
     };
     Ok(FitOutcome { model, stop, log })
 }

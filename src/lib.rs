@@ -61,5 +61,6 @@ pub mod pass;
 pub mod predict;
 pub mod run_dir;
 pub mod source;
+pub mod weights_file;
 
 pub use error::{Error, ErrorKind, Result};
