@@ -426,10 +426,35 @@ impl Session {
         self.prior_seconds + self.started.elapsed().as_secs_f64()
     }
 
-    fn save_checkpoint(&self, control: &Control, optimizer: &Optimizer, passes: u64) -> Result<()> {
+    fn save_checkpoint(
+        &self,
+        control: &Control,
+        optimizer: &mut Optimizer,
+        passes: u64,
+    ) -> Result<()> {
         let Some(dir) = &control.checkpoint_dir else {
             return Ok(());
         };
+        if self.layout.sparse > 0 {
+            // The state of a sparse fit is long (2·history + 2 vectors of all hashed
+            // weights): lent to the checkpoint instead of copied, and not kept for
+            // checkpoints inside a pass, which sparse fits therefore skip.
+            let identity = self.identity();
+            let progress = Progress {
+                passes,
+                seconds: self.seconds(),
+            };
+            return optimizer.with_state(|state| {
+                let cp = Checkpoint {
+                    identity,
+                    progress,
+                    state,
+                    partial: None,
+                };
+                let saved = checkpoint::save(dir, &cp);
+                (cp.state, saved)
+            });
+        }
         let cp = Checkpoint {
             identity: self.identity(),
             progress: Progress {
@@ -578,7 +603,7 @@ pub fn fit(
     };
     let optim_settings = optimizer_settings(settings, layout);
     let mut objective = session.objective();
-    let optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
+    let mut optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
     if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
         return Err(poisson_overflow(&place));
     }
@@ -589,7 +614,7 @@ pub fn fit(
     if let Some(watch) = session.record.holdout.as_mut() {
         watch.observe(0, start_holdout);
     }
-    session.save_checkpoint(control, &optimizer, passes)?;
+    session.save_checkpoint(control, &mut optimizer, passes)?;
     drive(&mut session, optimizer, passes, None, control, events)
 }
 
@@ -703,13 +728,16 @@ pub fn resume(
     state.settings.max_evals = budget.max_evals;
     state.settings.max_seconds = budget.max_seconds;
     let optimizer = Optimizer::from_state(state)?;
-    // Later mid-pass checkpoints extend the state the fit resumed from.
-    session.latest = Mutex::new(Some(Checkpoint {
-        identity: session.identity(),
-        progress: cp.progress.clone(),
-        state: optimizer.state().clone(),
-        partial: None,
-    }));
+    // Later mid-pass checkpoints extend the state the fit resumed from (not for sparse
+    // fits, whose state is not copied; see `Session::save_checkpoint`).
+    if layout.sparse == 0 {
+        session.latest = Mutex::new(Some(Checkpoint {
+            identity: session.identity(),
+            progress: cp.progress.clone(),
+            state: optimizer.state().clone(),
+            partial: None,
+        }));
+    }
     drive(
         &mut session,
         optimizer,
@@ -866,7 +894,7 @@ fn drive(
         }
         if last.is_some() {
             let passes = passes_now(&objective);
-            session.save_checkpoint(control, &optimizer, passes)?;
+            session.save_checkpoint(control, &mut optimizer, passes)?;
         }
     };
     let mut warnings = session.record.warnings.clone();

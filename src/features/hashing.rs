@@ -416,6 +416,14 @@ impl SparseDesign {
             let mut index = vec![0u32; n * k];
             let mut value = vec![0.0f64; n * k];
             for (fi, f) in self.hashed.iter().enumerate() {
+                if let Some(locs) = dictionary_locations(f, batch, bits)? {
+                    // A dictionary column: each distinct value was hashed once.
+                    for (i, (b, s)) in locs.into_iter().enumerate() {
+                        index[i * k + fi] = b;
+                        value[i * k + fi] = s;
+                    }
+                    continue;
+                }
                 self.for_each_value(f, batch, place, |i, bytes| {
                     let (b, s) = f.locate(bytes, bits);
                     index[i * k + fi] = b;
@@ -456,6 +464,53 @@ impl SparseDesign {
         }
         Ok(())
     }
+}
+
+/// Bucket and sign of every row of a one-part feature whose column is dictionary-encoded
+/// text (each distinct value hashed once); `None` for other columns.
+fn dictionary_locations(
+    f: &HashedFeature,
+    batch: &arrow::array::RecordBatch,
+    bits: u32,
+) -> Result<Option<Vec<(u32, f64)>>> {
+    if f.parts.len() != 1 || f.parts[0].bin.is_some() {
+        return Ok(None);
+    }
+    let Some(array) = batch.column_by_name(&f.parts[0].column) else {
+        return Ok(None);
+    };
+    let DataType::Dictionary(_, value_type) = array.data_type() else {
+        return Ok(None);
+    };
+    if ColumnClass::of(value_type) != ColumnClass::Text {
+        return Ok(None);
+    }
+    let dict = array.as_any_dictionary();
+    let values = cast(dict.values(), &DataType::Utf8)
+        .map_err(|e| Error::internal(format!("cannot read the dictionary of '{}': {e}", f.name)))?;
+    let values = values.as_string::<i32>();
+    let null = f.locate(&[NULL_PART], bits);
+    let locs: Vec<(u32, f64)> = (0..values.len())
+        .map(|j| {
+            if values.is_null(j) {
+                null
+            } else {
+                f.locate(values.value(j).as_bytes(), bits)
+            }
+        })
+        .collect();
+    let keys = dict.normalized_keys();
+    Ok(Some(
+        (0..array.len())
+            .map(|i| {
+                if array.is_null(i) {
+                    null
+                } else {
+                    locs[keys[i]]
+                }
+            })
+            .collect(),
+    ))
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -514,6 +569,7 @@ fn part_kind_opt(t: Option<&DataType>) -> Option<PartKind> {
 /// The values of one part in a batch.
 enum PartValues {
     Text(StringArray),
+    Int(Int64Array),
     Binned(Float64Array, f64),
     Tokens(arrow::array::ListArray),
 }
@@ -550,6 +606,16 @@ impl PartValues {
             let list: ArrayRef = cast(array, &target).map_err(cannot)?;
             return Ok(PartValues::Tokens(list.as_list::<i32>().clone()));
         }
+        if part_kind(array.data_type()) == PartKind::Int
+            && !matches!(
+                array.data_type(),
+                DataType::Dictionary(..) | DataType::UInt64
+            )
+        {
+            // Decimal text written straight into the hashed bytes, no string column.
+            let v = cast(array, &DataType::Int64).map_err(cannot)?;
+            return Ok(PartValues::Int(v.as_primitive().clone()));
+        }
         let text = if array.data_type() == &DataType::Utf8 {
             array.clone()
         } else {
@@ -566,6 +632,13 @@ impl PartValues {
                     buf.push(NULL_PART);
                 } else {
                     buf.extend_from_slice(s.value(i).as_bytes());
+                }
+            }
+            PartValues::Int(v) => {
+                if v.is_null(i) {
+                    buf.push(NULL_PART);
+                } else {
+                    let _ = write!(buf, "{}", v.value(i));
                 }
             }
             PartValues::Binned(v, w) => {
