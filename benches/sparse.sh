@@ -18,7 +18,7 @@ if [ "${SCALE:-full}" = small ]; then
 else
   rows=${ROWS:-10000000}; scipy_rows=${SCIPY_ROWS:-2000000}; bits=${BITS:-22}; per_file=1000000
 fi
-ridge=${RIDGE:-1e-5}
+ridge=${RIDGE:-1e-4}
 history=${HISTORY:-5}
 threads=${THREADS:-2}
 dir=${DIR:-/tmp/sparse-bench}

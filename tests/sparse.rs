@@ -8,6 +8,7 @@
 //!   here, fitted as dense features.
 //! - `predict_gives_the_margins_the_fit_saw`: margins and the objective recomputed here
 //!   from the model's weights and the raw values.
+//!
 //! The hash function itself is checked against the xxHash sanity vectors in
 //! src/features/hashing.rs.
 
@@ -346,17 +347,13 @@ fn predict_gives_the_margins_the_fit_saw_and_inspect_names_values() {
     let (b0, b1) = (model.internal[0], model.internal[1]);
     let w = model.sparse_weights();
     let mut loss = 0.0;
-    for i in 0..o.late.len() {
+    for (i, margin) in margins.iter().enumerate() {
         let mut z = b0 + b1 * (o.x1[i] - f.center) / f.scale;
         for (k, bytes) in row_values(&o, i) {
             let (b, s) = features[k].locate(&bytes, bits);
             z += s * w[b as usize];
         }
-        assert!(
-            (z - margins[i]).abs() < 1e-12,
-            "row {i}: {z} vs {}",
-            margins[i]
-        );
+        assert!((z - margin).abs() < 1e-12, "row {i}: {z} vs {margin}");
         let y = o.late[i] as f64;
         loss += (1.0 + z.exp()).ln() - y * z;
     }
