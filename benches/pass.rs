@@ -42,6 +42,7 @@ fn pass_throughput(c: &mut Criterion) {
         missing: MissingPolicy::Error,
         skip_missing_target: false,
         standardize: true,
+        sparse: None,
     };
     let candidates = features::resolve_columns(&source, &request).expect("columns");
     let stats_plan = PassPlan::new(&source, 2, 2);

@@ -54,6 +54,16 @@ pub struct FitSettings {
     /// Rows held out of the training and scored in every pass (`--holdout`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub holdout: Option<HoldoutSettings>,
+    /// Most memory in MB for the per-shard gradient buffers (`--gradient-memory`).
+    #[serde(default = "default_gradient_memory_mb")]
+    pub gradient_memory_mb: f64,
+}
+
+/// Default bound of the per-shard gradient buffers, in MB.
+pub const DEFAULT_GRADIENT_MEMORY_MB: f64 = 2048.0;
+
+fn default_gradient_memory_mb() -> f64 {
+    DEFAULT_GRADIENT_MEMORY_MB
 }
 
 fn default_inference_max_features() -> usize {
@@ -77,6 +87,7 @@ impl FitSettings {
             inference: false,
             inference_max_features: default_inference_max_features(),
             holdout: None,
+            gradient_memory_mb: DEFAULT_GRADIENT_MEMORY_MB,
         }
     }
 
@@ -122,6 +133,44 @@ impl FitSettings {
         }
         if let Some(h) = &self.holdout {
             h.validate()?;
+        }
+        if !(self.gradient_memory_mb.is_finite() && self.gradient_memory_mb > 0.0) {
+            return Err(Error::usage(format!(
+                "--gradient-memory must be a positive number of MB, not {}",
+                self.gradient_memory_mb
+            )));
+        }
+        if let Some(sparse) = &self.request.sparse {
+            let design = crate::features::hashing::SparseDesign::new(sparse)?;
+            if self.inference {
+                return Err(Error::usage(
+                    "--inference computes standard errors for dense models only; a model with \
+                     hashed or sparse features has too many weights for an information matrix; \
+                     fit without --inference (or without --categorical/--cross/--sparse-vector)",
+                ));
+            }
+            // At least one group of sparse coordinates per shard (softmax needs more,
+            // checked again once the classes are known).
+            self.check_gradient_memory(1 + design.dim)?;
+        }
+        Ok(())
+    }
+
+    /// Refuses a fit whose per-shard gradient buffers (`shards × dim × 8` bytes) would
+    /// exceed `--gradient-memory`.
+    pub fn check_gradient_memory(&self, dim: usize) -> Result<()> {
+        let shards = self.shard_count();
+        let bytes = shards as f64 * dim as f64 * 8.0;
+        let limit = self.gradient_memory_mb * 1024.0 * 1024.0;
+        if bytes > limit {
+            let bits = self.request.sparse.as_ref().map_or(0, |s| s.bits);
+            return Err(Error::usage(format!(
+                "the per-shard gradient buffers would take {:.0} MB ({shards} shards × {dim} \
+                 coefficients × 8 bytes), over the limit of {:.0} MB; use fewer --hash-bits \
+                 (now {bits}), fewer --threads or --shards, or raise --gradient-memory",
+                bytes / (1024.0 * 1024.0),
+                self.gradient_memory_mb
+            )));
         }
         Ok(())
     }
@@ -208,6 +257,8 @@ pub enum FitEvent<'a> {
     Warning(&'a str),
     /// An iteration was accepted.
     Iteration(&'a IterationRecord),
+    /// Something worth a line in the log (such as the memory of a sparse design).
+    Note(&'a str),
     /// A resumed fit has read its checkpoint and goes on from this iteration.
     Resumed {
         /// Iterations done before the checkpoint.
@@ -276,6 +327,9 @@ struct DesignRecord {
     /// The holdout's size and the driver's watch of its loss (with `--holdout`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     holdout: Option<HoldoutWatch>,
+    /// Most frequent values of each hashed feature (for reading the model).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    frequent: Vec<crate::weights_file::Frequent>,
 }
 
 /// The held-out rows and the best holdout loss so far; part of the fit's state, saved in
@@ -374,10 +428,35 @@ impl Session {
         self.prior_seconds + self.started.elapsed().as_secs_f64()
     }
 
-    fn save_checkpoint(&self, control: &Control, optimizer: &Optimizer, passes: u64) -> Result<()> {
+    fn save_checkpoint(
+        &self,
+        control: &Control,
+        optimizer: &mut Optimizer,
+        passes: u64,
+    ) -> Result<()> {
         let Some(dir) = &control.checkpoint_dir else {
             return Ok(());
         };
+        if self.layout.sparse > 0 {
+            // The state of a sparse fit is long (2·history + 2 vectors of all hashed
+            // weights): lent to the checkpoint instead of copied, and not kept for
+            // checkpoints inside a pass, which sparse fits therefore skip.
+            let identity = self.identity();
+            let progress = Progress {
+                passes,
+                seconds: self.seconds(),
+            };
+            return optimizer.with_state(|state| {
+                let cp = Checkpoint {
+                    identity,
+                    progress,
+                    state,
+                    partial: None,
+                };
+                let saved = checkpoint::save(dir, &cp);
+                (cp.state, saved)
+            });
+        }
         let cp = Checkpoint {
             identity: self.identity(),
             progress: Progress {
@@ -473,6 +552,7 @@ impl Prepared {
             self.design.classes.len(),
             penalized,
         )
+        .with_sparse(self.design.sparse_dim())
     }
 
     /// The intercept-only starting point of a fit (the null model).
@@ -544,7 +624,7 @@ pub fn prepare(
         );
     }
     // Refused before any event, so that a fit with nothing to fit writes nothing.
-    if design.width() == 0 {
+    if design.width() == 0 && design.sparse_dim() == 0 {
         return Err(Error::data(format!(
             "no usable feature is left in {}: every candidate ({}) is constant or empty in the rows used; name other columns with --features",
             describe_files(&source),
@@ -612,6 +692,20 @@ pub fn fit_prepared(
         }
         None => starting_point(&design, summary, layout)?,
     };
+    if layout.sparse > 0 {
+        settings.check_gradient_memory(layout.dim())?;
+        let memory =
+            crate::objective::sparse_kernel::gradient_memory(settings.shard_count(), layout);
+        let note = format!(
+            "sparse design: {} coefficients ({} sparse per output); per-shard gradient buffers {:.1} MB ({} shards), L-BFGS history {:.1} MB",
+            layout.dim(),
+            layout.sparse,
+            memory as f64 / 1048576.0,
+            settings.shard_count(),
+            (2 * settings.history * layout.dim() * 8) as f64 / 1048576.0
+        );
+        events(FitEvent::Note(&note));
+    }
     let record = DesignRecord {
         features: design.features.clone(),
         classes: design.classes.clone(),
@@ -628,6 +722,15 @@ pub fn fit_prepared(
             best_iteration: 0,
             since_best: 0,
         }),
+        frequent: match &design.sparse {
+            Some(s) => s
+                .hashed
+                .iter()
+                .zip(&summary.frequent)
+                .map(|(f, sk)| crate::weights_file::Frequent::of_sketch(&f.name, sk))
+                .collect(),
+            None => Vec::new(),
+        },
     };
     let mut session = Session {
         data: prepared.data.clone(),
@@ -666,7 +769,7 @@ pub fn fit_prepared(
     if let Some(watch) = session.record.holdout.as_mut() {
         watch.observe(0, start_holdout);
     }
-    session.save_checkpoint(control, &optimizer, passes)?;
+    session.save_checkpoint(control, &mut optimizer, passes)?;
     drive(&mut session, optimizer, passes, None, control, events)
 }
 
@@ -753,7 +856,8 @@ pub fn resume(
         design.width(),
         design.classes.len(),
         settings.penalized(),
-    );
+    )
+    .with_sparse(design.sparse_dim());
     let mut session = Session {
         data: cp.identity.data.clone(),
         settings: settings.clone(),
@@ -779,13 +883,16 @@ pub fn resume(
     state.settings.max_evals = budget.max_evals;
     state.settings.max_seconds = budget.max_seconds;
     let optimizer = Optimizer::from_state(state)?;
-    // Later mid-pass checkpoints extend the state the fit resumed from.
-    session.latest = Mutex::new(Some(Checkpoint {
-        identity: session.identity(),
-        progress: cp.progress.clone(),
-        state: optimizer.state().clone(),
-        partial: None,
-    }));
+    // Later mid-pass checkpoints extend the state the fit resumed from (not for sparse
+    // fits, whose state is not copied; see `Session::save_checkpoint`).
+    if layout.sparse == 0 {
+        session.latest = Mutex::new(Some(Checkpoint {
+            identity: session.identity(),
+            progress: cp.progress.clone(),
+            state: optimizer.state().clone(),
+            partial: None,
+        }));
+    }
     drive(
         &mut session,
         optimizer,
@@ -942,7 +1049,7 @@ fn drive(
         }
         if last.is_some() {
             let passes = passes_now(&objective);
-            session.save_checkpoint(control, &optimizer, passes)?;
+            session.save_checkpoint(control, &mut optimizer, passes)?;
         }
     };
     let mut warnings = session.record.warnings.clone();
@@ -1016,6 +1123,14 @@ fn drive(
         },
         fit,
         inference: inferred.table,
+        sparse: settings
+            .request
+            .sparse
+            .as_ref()
+            .map(|r| crate::model::SparseModel {
+                request: r.clone(),
+                frequent: session.record.frequent.clone(),
+            }),
     };
     let history = optimizer
         .state()

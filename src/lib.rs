@@ -63,5 +63,6 @@ pub mod predict;
 pub mod report;
 pub mod run_dir;
 pub mod source;
+pub mod weights_file;
 
 pub use error::{Error, ErrorKind, Result};

@@ -9,6 +9,7 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value};
 
+use crate::features::hashing::SparseRequest;
 use crate::features::{Design, Feature, FeatureRequest, MissingPolicy};
 use crate::inference::InferenceTable;
 use crate::objective::{Layout, Loss};
@@ -118,6 +119,18 @@ pub struct Model {
     pub fit: FitRecord,
     /// Standard errors and intervals, when the fit was asked for them (`--inference`).
     pub inference: Option<InferenceTable>,
+    /// Hashed and sparse vector features (their weights follow the dense ones in
+    /// `internal`), with the most frequent values seen per hashed feature.
+    pub sparse: Option<SparseModel>,
+}
+
+/// The sparse part of a model.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SparseModel {
+    /// The hashing settings and sparse vector columns of the fit.
+    pub request: SparseRequest,
+    /// Most frequent values of each hashed feature in the training rows.
+    pub frequent: Vec<crate::weights_file::Frequent>,
 }
 
 /// Intercepts and coefficients on the original scale: one row per output
@@ -204,6 +217,7 @@ impl Model {
             missing: self.missing,
             skip_missing_target,
             standardize: self.standardize,
+            sparse: self.sparse.as_ref().map(|s| s.request.clone()),
         };
         let class_index: HashMap<String, usize> = self
             .classes
@@ -277,15 +291,29 @@ impl Model {
             internal: InternalRecord {
                 standardized: self.standardize,
                 reference_class: self.layout.reference,
-                coefficients: self.internal.clone(),
+                coefficients: self.internal[..self.layout.dense_dim()].to_vec(),
             },
             inference: self.inference.as_ref().map(InferenceTable::to_value),
+            hashed: self
+                .sparse
+                .as_ref()
+                .map(|s| crate::weights_file::record(s, self.sparse_weights())),
         }
+    }
+
+    /// The sparse weights (every group's, in order): the tail of `internal`.
+    pub fn sparse_weights(&self) -> &[f64] {
+        &self.internal[self.layout.dense_dim()..]
     }
 
     /// Writes the model file atomically.
     pub fn save(&self, path: &Path) -> Result<()> {
-        let mut text = serde_json::to_string_pretty(&self.to_file())
+        let mut file = self.to_file();
+        if let Some(h) = file.hashed.as_mut() {
+            // Large weight vectors go to a binary file beside the model, written first.
+            crate::weights_file::write_beside(path, h, self.sparse_weights())?;
+        }
+        let mut text = serde_json::to_string_pretty(&file)
             .map_err(|e| Error::internal(format!("cannot encode the model: {e}")))?;
         text.push('\n');
         atomic::write(path, text.as_bytes())
@@ -318,7 +346,11 @@ impl Model {
         let file: ModelFile = serde_json::from_value(value).map_err(|e| {
             Error::format(format!("the model file {} is damaged: {e}", path.display()))
         })?;
-        Model::from_file(file).map_err(|e| {
+        let sparse_weights = match &file.hashed {
+            Some(h) => Some(crate::weights_file::read_beside(path, h)?),
+            None => None,
+        };
+        Model::from_file(file, sparse_weights).map_err(|e| {
             Error::format(format!(
                 "the model file {} is damaged: {}",
                 path.display(),
@@ -327,7 +359,7 @@ impl Model {
         })
     }
 
-    fn from_file(file: ModelFile) -> Result<Model> {
+    fn from_file(file: ModelFile, sparse_weights: Option<Vec<f64>>) -> Result<Model> {
         let loss = Loss::parse(&file.loss)?;
         let classes = file.classes.unwrap_or_default();
         if loss == Loss::Softmax && classes.len() < 2 {
@@ -361,21 +393,45 @@ impl Model {
         {
             return Err(Error::format("a feature has an invalid scale"));
         }
+        let sparse = file
+            .hashed
+            .as_ref()
+            .map(crate::weights_file::sparse_model)
+            .transpose()?;
+        let sparse_dim = match &sparse {
+            Some(s) => {
+                crate::features::hashing::SparseDesign::new(&s.request)
+                    .map_err(|e| Error::format(e.message().to_string()))?
+                    .dim
+            }
+            None => 0,
+        };
         let layout = Layout::new(
             loss,
             features.len(),
             classes.len(),
             !file.internal.reference_class,
-        );
-        if file.internal.coefficients.len() != layout.dim() {
+        )
+        .with_sparse(sparse_dim);
+        if file.internal.coefficients.len() != layout.dense_dim() {
             return Err(Error::format(format!(
                 "it holds {} internal coefficients where {} features need {}",
                 file.internal.coefficients.len(),
                 features.len(),
-                layout.dim()
+                layout.dense_dim()
             )));
         }
-        if file.internal.coefficients.iter().any(|v| !v.is_finite()) {
+        let mut internal = file.internal.coefficients;
+        let tail = sparse_weights.unwrap_or_default();
+        if tail.len() != layout.groups * layout.sparse {
+            return Err(Error::format(format!(
+                "it holds {} hashed weights where its hashing settings need {}",
+                tail.len(),
+                layout.groups * layout.sparse
+            )));
+        }
+        internal.extend_from_slice(&tail);
+        if internal.iter().any(|v| !v.is_finite()) {
             return Err(Error::format("a coefficient is not a finite number"));
         }
         if let Some(h) = &file.fit.holdout {
@@ -396,10 +452,11 @@ impl Model {
             missing: file.missing,
             standardize,
             layout,
-            internal: file.internal.coefficients,
+            internal,
             penalty: file.penalty,
             fit: file.fit,
             inference,
+            sparse,
         })
     }
 }
@@ -474,4 +531,7 @@ pub struct ModelFile {
     /// Standard errors, statistics, p-values and intervals (only with `--inference`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub inference: Option<Value>,
+    /// Hashing settings and where the hashed weights are (DESIGN §6 `hashed`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub hashed: Option<crate::weights_file::HashedRecord>,
 }

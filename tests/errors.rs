@@ -18,7 +18,10 @@
 //! - A softmax class seen in training but absent from a later file is fine (test
 //!   `a_class_absent_from_a_later_file_is_fine`); a class the model never saw, in the data
 //!   given to `evaluate`, is an error naming the class and its row.
-//! - Hash bits: there is no hashing yet, so `--hash-bits` is an unknown flag (clap, exit 2).
+//! - Hashed features (`--categorical`, `--cross`, `--sparse-vector`): bits outside
+//!   10..=28, unknown or unhashable columns, list columns of the wrong item type, sparse
+//!   vector indices outside the declared dimension (the row is named), gradient buffers
+//!   over `--gradient-memory`, and `--inference` with hashed features are refused.
 
 mod common;
 
@@ -718,6 +721,149 @@ fn cases(w: &World) -> Vec<Case> {
         &["new_class.parquet", "'cls'", "row 34", "'d'"],
     ));
 
+    // --- hashed and sparse features ---
+    let zones = |c: &mut Cols| {
+        let v: Vec<Option<String>> = (0..120)
+            .map(|i| Some(["harbor", "hill", "mill"][i % 3].to_string()))
+            .collect();
+        c.extra
+            .push(("zone".into(), Arc::new(StringArray::from(v))));
+    };
+    let p = variant(w, "zones.parquet", zones);
+    let zx = ["--target", "y", "--features", "x1", "--categorical", "zone"];
+    let mut a = zx.to_vec();
+    a.extend(["--hash-bits", "9"]);
+    out.push(case(
+        "hash bits below 10",
+        fit(w, std::slice::from_ref(&p), &a),
+        &["--hash-bits", "10", "28", "9"],
+    ));
+    let mut a = zx.to_vec();
+    a.extend(["--hash-bits", "29"]);
+    out.push(case(
+        "hash bits above 28",
+        fit(w, std::slice::from_ref(&p), &a),
+        &["--hash-bits", "29"],
+    ));
+    out.push(case(
+        "hash bits with nothing to hash",
+        fit(
+            w,
+            std::slice::from_ref(&p),
+            &["--target", "y", "--hash-bits", "12"],
+        ),
+        &["--hash-bits", "--categorical"],
+    ));
+    out.push(case(
+        "unknown categorical column",
+        fit(
+            w,
+            std::slice::from_ref(&p),
+            &["--target", "y", "--categorical", "zone,nosuch"],
+        ),
+        &["zones.parquet", "'nosuch'"],
+    ));
+    out.push(case(
+        "unknown column in a cross",
+        fit(
+            w,
+            std::slice::from_ref(&p),
+            &["--target", "y", "--cross", "zone*nosuch"],
+        ),
+        &["zones.parquet", "'nosuch'"],
+    ));
+    out.push(case(
+        "float column hashed without a bin width",
+        fit(
+            w,
+            std::slice::from_ref(&p),
+            &["--target", "y", "--categorical", "x2"],
+        ),
+        &["zones.parquet", "'x2'", "x2/WIDTH"],
+    ));
+    let q = variant(w, "int_lists.parquet", |c| {
+        let lists = arrow::array::ListArray::from_iter_primitive::<arrow::datatypes::Int64Type, _, _>(
+            (0..120).map(|i| Some(vec![Some(i as i64), Some(1)])),
+        );
+        c.extra.push(("tags".into(), Arc::new(lists)));
+    });
+    out.push(case(
+        "list column of integers as a token bag",
+        fit(w, &[q], &["--target", "y", "--categorical", "tags"]),
+        &["int_lists.parquet", "'tags'", "list<utf8>"],
+    ));
+    let q = variant(w, "vectors.parquet", |c| {
+        let index: Vec<i64> = (0..240)
+            .map(|k| if k == 2 * 77 + 1 { 50 } else { (k % 7) as i64 })
+            .collect();
+        let value: Vec<f64> = (0..240).map(|k| 1.0 + (k % 3) as f64).collect();
+        let fields = arrow::datatypes::Fields::from(vec![
+            Field::new("index", arrow::datatypes::DataType::Int64, false),
+            Field::new("value", arrow::datatypes::DataType::Float64, false),
+        ]);
+        let items = arrow::array::StructArray::new(
+            fields.clone(),
+            vec![
+                Arc::new(Int64Array::from(index)) as ArrayRef,
+                Arc::new(Float64Array::from(value)) as ArrayRef,
+            ],
+            None,
+        );
+        let offsets = arrow::buffer::OffsetBuffer::from_lengths(std::iter::repeat_n(2, 120));
+        let list = arrow::array::ListArray::new(
+            Arc::new(Field::new(
+                "item",
+                arrow::datatypes::DataType::Struct(fields),
+                false,
+            )),
+            offsets,
+            Arc::new(items),
+            None,
+        );
+        c.extra.push(("vec".into(), Arc::new(list)));
+    });
+    out.push(case(
+        "sparse vector index outside the declared dimension",
+        fit(
+            w,
+            std::slice::from_ref(&q),
+            &["--target", "y", "--sparse-vector", "vec:10"],
+        ),
+        &["'vec'", "row 78", "vectors.parquet", "50", "10"],
+    ));
+    out.push(case(
+        "sparse vector column of the wrong type",
+        fit(
+            w,
+            std::slice::from_ref(&p),
+            &["--target", "y", "--sparse-vector", "zone:10"],
+        ),
+        &["'zone'", "list<struct"],
+    ));
+    out.push(case(
+        "sparse vector without a dimension",
+        fit(
+            w,
+            std::slice::from_ref(&q),
+            &["--target", "y", "--sparse-vector", "vec"],
+        ),
+        &["--sparse-vector", "COL:DIM"],
+    ));
+    let mut a = zx.to_vec();
+    a.extend(["--hash-bits", "28", "--shards", "4"]);
+    out.push(case(
+        "gradient buffers over the memory limit",
+        fit(w, std::slice::from_ref(&p), &a),
+        &["gradient buffers", "2048 MB", "--hash-bits", "--shards"],
+    ));
+    let mut a = zx.to_vec();
+    a.push("--inference");
+    out.push(case(
+        "standard errors of a hashed model",
+        fit(w, std::slice::from_ref(&p), &a),
+        &["--inference", "hashed"],
+    ));
+
     // --- resume ---
     let not_run = w.input("not_a_run");
     fs::create_dir_all(&not_run).expect("mkdir");
@@ -934,24 +1080,13 @@ fn every_hostile_input_exits_two_with_one_line_and_writes_nothing() {
 }
 
 /// Flag-syntax errors are clap's usage messages (several lines, exit 2); they too write
-/// nothing. `--hash-bits` is here: there is no hashing yet, so the flag is unknown.
+/// nothing.
 #[test]
 fn flag_syntax_errors_exit_two_and_write_nothing() {
     let w = world();
     let good = World::s(&w.input("good.parquet"));
     let model = World::s(&w.out("model.json"));
     let list = [
-        args(&[
-            "fit",
-            "--data",
-            &good,
-            "--target",
-            "y",
-            "--out",
-            &model,
-            "--hash-bits",
-            "99",
-        ]),
         args(&[
             "fit",
             "--data",

@@ -128,6 +128,26 @@ pub struct FitArgs {
     /// improved for K accepted iterations.
     #[arg(long, value_name = "K")]
     pub holdout_patience: Option<u64>,
+    /// Hashed categorical columns (strings, integers, booleans, list<utf8> token bags,
+    /// or binned numerics COL/WIDTH): each value hashed with its column name into
+    /// 2^--hash-bits buckets with a sign; nulls get a bucket of their own.
+    #[arg(long, value_delimiter = ',', value_name = "COL,...")]
+    pub categorical: Option<Vec<String>>,
+    /// A cross of categorical columns (or binned numerics COL/WIDTH), hashed like
+    /// --categorical: `zone*hour`; repeat the flag for several crosses.
+    #[arg(long, value_name = "A*B[*C]")]
+    pub cross: Vec<String>,
+    /// Bits of the hash: 2^BITS buckets, from 10 to 28 (default 20).
+    #[arg(long, value_name = "BITS")]
+    pub hash_bits: Option<u32>,
+    /// A pre-encoded sparse vector column list<struct<index, value>> with indices in
+    /// 0..DIM; repeat the flag for several columns.
+    #[arg(long, value_name = "COL:DIM")]
+    pub sparse_vector: Vec<String>,
+    /// Most memory in MB for the per-shard gradient buffers of a sparse model
+    /// (shards × coefficients × 8 bytes; default 2048).
+    #[arg(long, value_name = "MB", allow_negative_numbers = true)]
+    pub gradient_memory: Option<f64>,
     /// Run directory for the log and settings (default: next to --out, `MODEL.run`).
     #[arg(long, value_name = "DIR")]
     pub run: Option<PathBuf>,

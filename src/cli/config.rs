@@ -6,6 +6,7 @@ use std::time::Duration;
 
 use serde::Deserialize;
 
+use outcore::features::hashing::{self, SparseRequest};
 use outcore::features::{FeatureRequest, MissingPolicy};
 use outcore::fit::FitSettings;
 use outcore::holdout::HoldoutSettings;
@@ -43,6 +44,11 @@ struct FitConfig {
     run: Option<PathBuf>,
     out: Option<PathBuf>,
     checkpoint_every: Option<String>,
+    categorical: Option<Vec<String>>,
+    cross: Option<Vec<String>>,
+    hash_bits: Option<u32>,
+    sparse_vector: Option<Vec<String>>,
+    gradient_memory: Option<f64>,
 }
 
 /// A fit fully resolved from flags and settings file.
@@ -97,6 +103,40 @@ fn relative_to(base: &Path, p: &str) -> String {
     } else {
         base.join(path).to_string_lossy().into_owned()
     }
+}
+
+/// The sparse part of a request from --categorical, --cross, --hash-bits and
+/// --sparse-vector (none when none of them is given).
+fn sparse_request(
+    categorical: Option<Vec<String>>,
+    crosses: Vec<String>,
+    bits: Option<u32>,
+    vectors: Vec<String>,
+) -> Result<Option<SparseRequest>> {
+    let columns = categorical.unwrap_or_default();
+    if columns.is_empty() && crosses.is_empty() && vectors.is_empty() {
+        if bits.is_some() {
+            return Err(Error::usage(
+                "--hash-bits needs something to hash: --categorical COL,... or --cross A*B",
+            ));
+        }
+        return Ok(None);
+    }
+    Ok(Some(SparseRequest {
+        bits: bits.unwrap_or(hashing::DEFAULT_BITS),
+        columns: columns
+            .iter()
+            .map(|c| hashing::parse_part(c, "--categorical"))
+            .collect::<Result<_>>()?,
+        crosses: crosses
+            .iter()
+            .map(|c| hashing::parse_cross(c))
+            .collect::<Result<_>>()?,
+        vectors: vectors
+            .iter()
+            .map(|v| hashing::parse_vector(v))
+            .collect::<Result<_>>()?,
+    }))
 }
 
 /// Resolves flags over the settings file into a plan.
@@ -154,6 +194,20 @@ pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
         skip_missing_target: args.skip_missing_target
             || config.skip_missing_target.unwrap_or(false),
         standardize: !args.no_standardize && config.standardize.unwrap_or(true),
+        sparse: sparse_request(
+            args.categorical.clone().or(config.categorical),
+            if args.cross.is_empty() {
+                config.cross.unwrap_or_default()
+            } else {
+                args.cross.clone()
+            },
+            args.hash_bits.or(config.hash_bits),
+            if args.sparse_vector.is_empty() {
+                config.sparse_vector.unwrap_or_default()
+            } else {
+                args.sparse_vector.clone()
+            },
+        )?,
     };
     let mut settings = FitSettings::new(request);
     settings.ridge = args.ridge.or(config.ridge).unwrap_or(0.0);
@@ -169,6 +223,9 @@ pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
         .or(config.block_rows)
         .unwrap_or(settings.block_rows);
     settings.inference = args.inference || config.inference.unwrap_or(false);
+    if let Some(mb) = args.gradient_memory.or(config.gradient_memory) {
+        settings.gradient_memory_mb = mb;
+    }
     settings.inference_max_features = args
         .inference_max_features
         .or(config.inference_max_features)

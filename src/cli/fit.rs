@@ -173,6 +173,11 @@ impl Reporter<'_> {
                 }
             }
             FitEvent::Warning(w) => self.say(&format!("warning: {w}")),
+            FitEvent::Note(n) => {
+                if !self.quiet {
+                    self.say(n);
+                }
+            }
             FitEvent::Iteration(r) => {
                 if !self.accepted {
                     self.keep_new_run();

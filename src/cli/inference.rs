@@ -15,6 +15,12 @@ use super::EXIT_OK;
 /// `outcore inference`.
 pub fn run(args: InferenceArgs) -> Result<i32> {
     let mut model = Model::load(&args.model)?;
+    if model.sparse.is_some() {
+        return Err(outcore::Error::usage(format!(
+            "{} has hashed or sparse features; standard errors are computed for dense models only",
+            args.model.display()
+        )));
+    }
     let out = args.out.clone().unwrap_or_else(|| args.model.clone());
     atomic::check_output(&out, "model")?;
     let data: Vec<String> = args

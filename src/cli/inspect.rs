@@ -1,7 +1,11 @@
 //! `outcore inspect`: a model file as a readable summary.
 
+use std::collections::HashMap;
+
+use outcore::features::hashing::SparseDesign;
 use outcore::model::Model;
 use outcore::objective::Loss;
+use outcore::weights_file::encode_parts;
 use outcore::Result;
 
 use super::args::InspectArgs;
@@ -110,6 +114,10 @@ pub fn run(args: InspectArgs) -> Result<i32> {
             order.len()
         ));
     }
+    if model.sparse.is_some() {
+        lines.push(String::new());
+        lines.extend(hashed_lines(&model, args.top));
+    }
     if let Some(table) = &model.inference {
         lines.push(String::new());
         lines.extend(table.table_lines());
@@ -118,4 +126,119 @@ pub fn run(args: InspectArgs) -> Result<i32> {
         output::line(&l);
     }
     Ok(EXIT_OK)
+}
+
+/// The strongest sparse weights of each output, named by the frequent values that fell
+/// into their buckets, and the count of nonzero weights.
+fn hashed_lines(model: &Model, top: usize) -> Vec<String> {
+    let Some(sparse) = &model.sparse else {
+        return Vec::new();
+    };
+    let Ok(design) = SparseDesign::new(&sparse.request) else {
+        return Vec::new();
+    };
+    let bits = sparse.request.bits;
+    // Bucket → labels of the frequent values hashed there, with their signs.
+    let mut names: HashMap<u32, Vec<(String, f64)>> = HashMap::new();
+    for freq in &sparse.frequent {
+        let Some(f) = design.hashed.iter().find(|f| f.name == freq.feature) else {
+            continue;
+        };
+        for v in &freq.values {
+            let bytes = encode_parts(&v.value);
+            let (bucket, sign) = f.locate(&bytes, bits);
+            names
+                .entry(bucket)
+                .or_default()
+                .push((f.label(&bytes), sign));
+        }
+    }
+    let layout = model.layout;
+    let weights = model.sparse_weights();
+    let mut lines = vec![format!(
+        "hashed      {} buckets (2^{bits}) for {}{}",
+        design.buckets,
+        design
+            .hashed
+            .iter()
+            .map(|f| f.name.as_str())
+            .collect::<Vec<_>>()
+            .join(", "),
+        if sparse.request.vectors.is_empty() {
+            String::new()
+        } else {
+            format!(
+                "; sparse vectors {}",
+                sparse
+                    .request
+                    .vectors
+                    .iter()
+                    .map(|v| format!("{} ({})", v.column, v.dim))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )
+        }
+    )];
+    let outputs: Vec<String> = if model.loss == Loss::Softmax {
+        model.classes.clone()
+    } else {
+        vec![String::new()]
+    };
+    for (k, class) in outputs.iter().enumerate() {
+        // Softmax without a penalty has no weights for the reference class.
+        let Some(g) = (0..layout.groups)
+            .find(|g| model.loss != Loss::Softmax || layout.class_of_group(*g) == k)
+        else {
+            continue;
+        };
+        let w = &weights[g * layout.sparse..(g + 1) * layout.sparse];
+        let nonzero = w.iter().filter(|v| **v != 0.0).count();
+        if model.loss == Loss::Softmax {
+            lines.push(format!("class '{class}'"));
+        }
+        let mut order: Vec<usize> = (0..w.len()).filter(|i| w[*i] != 0.0).collect();
+        order.sort_by(|a, b| w[*b].abs().total_cmp(&w[*a].abs()).then(a.cmp(b)));
+        lines.push(format!(
+            "{:>14}  {:>14}  values in the bucket (sign)",
+            "weight", "coordinate"
+        ));
+        for &i in order.iter().take(top) {
+            let label = if i < design.buckets {
+                match names.get(&(i as u32)) {
+                    Some(list) => list
+                        .iter()
+                        .map(|(l, s)| format!("{l} ({})", if *s > 0.0 { '+' } else { '-' }))
+                        .collect::<Vec<_>>()
+                        .join(", "),
+                    None => "(no frequent value)".to_string(),
+                }
+            } else {
+                let (v, start) = sparse
+                    .request
+                    .vectors
+                    .iter()
+                    .zip(&design.vector_offsets)
+                    .rev()
+                    .find(|(_, s)| **s <= i)
+                    .map(|(v, s)| (v.column.as_str(), *s))
+                    .unwrap_or(("?", 0));
+                format!("{v}[{}]", i - start)
+            };
+            let coordinate = if i < design.buckets {
+                format!("bucket {i}")
+            } else {
+                format!("{i}")
+            };
+            lines.push(format!(
+                "{:>14}  {:>14}  {label}",
+                output::sig(w[i], 7),
+                coordinate
+            ));
+        }
+        lines.push(format!(
+            "{nonzero} of {} hashed and sparse weights are nonzero",
+            w.len()
+        ));
+    }
+    lines
 }

@@ -256,6 +256,7 @@ impl Writer<'_> {
                 ));
             }
             PathEvent::Fit(_, FitEvent::Warning(w)) => self.say(&format!("warning: {w}")),
+            PathEvent::Fit(_, FitEvent::Note(n)) => self.say(n),
             PathEvent::Fit(_, FitEvent::Iteration(r)) => {
                 if let Some(t) = &self.ticker {
                     t.set_objective(r.objective);

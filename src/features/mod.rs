@@ -6,6 +6,9 @@
 //! centre and scale and the target's classes, and it turns any batch of the same data
 //! into the same block, on every pass.
 
+pub mod hashing;
+pub mod heavy_hitters;
+pub mod sparse;
 pub mod stats;
 pub mod values;
 
@@ -19,6 +22,9 @@ use crate::objective::Loss;
 use crate::pass::{self, PassPlan};
 use crate::source::{BatchAt, ColumnClass, Source};
 use crate::{Error, Result};
+use hashing::{SparseDesign, SparseRequest};
+use heavy_hitters::Sketch;
+use sparse::SparseRows;
 use stats::Moments;
 use values::Place;
 
@@ -62,6 +68,9 @@ pub struct FeatureRequest {
     pub skip_missing_target: bool,
     /// Centre and scale numeric features by their weighted mean and standard deviation.
     pub standardize: bool,
+    /// Hashed categoricals, crosses and sparse vector columns (none: dense only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sparse: Option<SparseRequest>,
 }
 
 /// Suffix of the name of a missing-value indicator feature.
@@ -101,6 +110,9 @@ pub struct Summary {
     pub weight_sum: f64,
     /// Moments of each candidate feature column, in the order of the request.
     pub columns: Vec<(String, Moments)>,
+    /// Most frequent values of each hashed feature (training rows), in the order of
+    /// [`SparseDesign::hashed`].
+    pub frequent: Vec<Sketch>,
     /// Moments of the target (numeric targets).
     pub target: Moments,
     /// Distinct class labels (softmax), in order.
@@ -140,6 +152,8 @@ pub struct Design {
     holdout: Option<RowSplit>,
     /// With a split: leave held-out rows out of blocks (true) instead of marking them.
     drop_held_out: bool,
+    /// Hashed and sparse vector features (their coordinates follow the dense ones).
+    pub sparse: Option<SparseDesign>,
 }
 
 /// A block of rows ready for the kernels: features column by column, labels, weights.
@@ -161,6 +175,8 @@ pub struct Block {
     /// Held-out rows (`true`), when the design has a holdout split and some rows of the
     /// block are held out; empty otherwise (every row is a training row).
     pub holdout: Vec<bool>,
+    /// Sparse entries (hashed values, sparse vectors) of each row; empty without them.
+    pub sparse: SparseRows,
 }
 
 impl Block {
@@ -199,6 +215,18 @@ pub fn resolve_columns(source: &Source, request: &FeatureRequest) -> Result<Vec<
         }
         needed.push(w);
     }
+    let sparse = request.sparse.as_ref().map(SparseDesign::new).transpose()?;
+    let sparse_columns = sparse
+        .as_ref()
+        .map(SparseDesign::columns)
+        .unwrap_or_default();
+    for c in &sparse_columns {
+        if c == &request.target || Some(c) == request.weight.as_ref() {
+            return Err(Error::usage(format!(
+                "'{c}' is the target or the weight column and cannot also be a categorical feature"
+            )));
+        }
+    }
     let features: Vec<String> = match &request.features {
         Some(list) => {
             let mut seen = BTreeSet::new();
@@ -223,6 +251,7 @@ pub fn resolve_columns(source: &Source, request: &FeatureRequest) -> Result<Vec<
             .filter(|f| {
                 f.name() != &request.target
                     && Some(f.name()) != request.weight.as_ref()
+                    && !sparse_columns.contains(f.name())
                     && matches!(
                         ColumnClass::of(f.data_type()),
                         ColumnClass::Numeric | ColumnClass::Bool
@@ -231,7 +260,7 @@ pub fn resolve_columns(source: &Source, request: &FeatureRequest) -> Result<Vec<
             .map(|f| f.name().clone())
             .collect(),
     };
-    if features.is_empty() {
+    if features.is_empty() && sparse.is_none() {
         return Err(Error::usage(format!(
             "{} has no numeric feature columns besides the target; name features with --features",
             source.files()[0].path.display()
@@ -239,6 +268,9 @@ pub fn resolve_columns(source: &Source, request: &FeatureRequest) -> Result<Vec<
     }
     needed.extend(features.iter().map(String::as_str));
     source.require_columns(&needed)?;
+    if let Some(s) = &sparse {
+        s.check_columns(source)?;
+    }
     let first = &source.files()[0];
     for name in &features {
         let class = source
@@ -382,6 +414,8 @@ struct StatsAcc {
     held_out_nulls: Vec<u64>,
     /// Softmax class labels seen in held-out rows.
     held_out_labels: BTreeSet<String>,
+    /// Most frequent values of each hashed feature.
+    sketches: Vec<Sketch>,
 }
 
 /// The statistics pass: reads target, weight and every candidate feature once, checks
@@ -415,6 +449,17 @@ pub fn collect_stats_split(
             columns.push(key);
         }
     }
+    let sparse = request.sparse.as_ref().map(SparseDesign::new).transpose()?;
+    let sparse_columns = sparse
+        .as_ref()
+        .map(SparseDesign::columns)
+        .unwrap_or_default();
+    for c in &sparse_columns {
+        if !columns.contains(&c.as_str()) {
+            columns.push(c);
+        }
+    }
+    let hashed_count = sparse.as_ref().map_or(0, |s| s.hashed.len());
     let shards = pass::run(
         source,
         plan,
@@ -435,8 +480,9 @@ pub fn collect_stats_split(
             held_out_weight: 0.0,
             held_out_nulls: vec![0; features.len()],
             held_out_labels: BTreeSet::new(),
+            sketches: vec![Sketch::new(heavy_hitters::DEFAULT_COUNTERS); hashed_count],
         },
-        |acc, at| stats_block(acc, source, request, features, split, &at),
+        |acc, at| stats_block(acc, source, request, features, split, sparse.as_ref(), &at),
     )?;
     let mut total = Summary {
         rows: 0,
@@ -452,6 +498,7 @@ pub fn collect_stats_split(
         class_weights: Vec::new(),
         held_out_rows: 0,
         held_out_weight: 0.0,
+        frequent: vec![Sketch::new(heavy_hitters::DEFAULT_COUNTERS); hashed_count],
     };
     let mut held_out_nulls = vec![0u64; features.len()];
     let mut held_out_labels = BTreeSet::new();
@@ -484,6 +531,9 @@ pub fn collect_stats_split(
             *t += n;
         }
         held_out_labels.extend(shard.held_out_labels);
+        for (t, s) in total.frequent.iter_mut().zip(&shard.sketches) {
+            t.merge(s);
+        }
     }
     if request.missing == MissingPolicy::Error {
         for (j, (name, m)) in total.columns.iter().enumerate() {
@@ -533,6 +583,7 @@ fn stats_block(
     request: &FeatureRequest,
     features: &[String],
     split: Option<&RowSplit>,
+    sparse: Option<&SparseDesign>,
     at: &BatchAt,
 ) -> Result<()> {
     let place = Place {
@@ -650,6 +701,20 @@ fn stats_block(
             }
         }
     }
+    if let Some(sparse) = sparse {
+        for (f, sketch) in sparse.hashed.iter().zip(acc.sketches.iter_mut()) {
+            sparse.for_each_value(f, &at.batch, place, |i, bytes| {
+                if used[i] {
+                    sketch.offer(bytes);
+                }
+            })?;
+        }
+        if !sparse.request.vectors.is_empty() {
+            // Checks every entry (indices inside the declared dimension) once, here.
+            let mut rows = SparseRows::default();
+            sparse.build(&at.batch, place, None, &mut rows)?;
+        }
+    }
     Ok(())
 }
 
@@ -747,6 +812,9 @@ impl Design {
             .enumerate()
             .map(|(i, c)| (c.clone(), i))
             .collect();
+        if let Some(r) = &request.sparse {
+            SparseDesign::new(r)?;
+        }
         Ok((
             Design::from_parts(request, summary.classes.clone(), features, class_index),
             warnings,
@@ -766,6 +834,16 @@ impl Design {
                 feature_columns.push(f.column.clone());
             }
         }
+        // Checked by `Design::new` (fits) and by the model reader (models).
+        let sparse = request
+            .sparse
+            .as_ref()
+            .and_then(|r| SparseDesign::new(r).ok());
+        for c in sparse.iter().flat_map(SparseDesign::columns) {
+            if !feature_columns.contains(&c) {
+                feature_columns.push(c);
+            }
+        }
         Design {
             target: request.target.clone(),
             weight: request.weight.clone(),
@@ -779,6 +857,7 @@ impl Design {
             feature_columns,
             holdout: None,
             drop_held_out: false,
+            sparse,
         }
     }
 
@@ -809,7 +888,12 @@ impl Design {
         self.features.len()
     }
 
-    /// Source columns of the features.
+    /// Sparse coordinates (hash buckets and sparse vector positions); 0 when dense only.
+    pub fn sparse_dim(&self) -> usize {
+        self.sparse.as_ref().map_or(0, |s| s.dim)
+    }
+
+    /// Source columns of the features (dense, then sparse).
     pub fn feature_columns(&self) -> &[String] {
         &self.feature_columns
     }
@@ -962,6 +1046,10 @@ impl Design {
                 };
                 block.x.push((raw - feature.center) * inv);
             }
+        }
+        block.sparse.clear();
+        if let Some(sparse) = &self.sparse {
+            sparse.build(&at.batch, place, keep.as_deref(), &mut block.sparse)?;
         }
         Ok(())
     }

@@ -5,6 +5,7 @@ use std::time::Duration;
 use crate::checkpoint::{PartialPass, ShardProgress};
 use crate::features::{Block, Design};
 use crate::objective::loss::{self, Loss, MAX_EXP_MARGIN};
+use crate::objective::sparse_kernel;
 use crate::optim::Objective;
 use crate::pass::{self, PassPlan, ShardStart, Snapshots};
 use crate::source::Source;
@@ -26,6 +27,9 @@ pub struct Layout {
     pub classes: usize,
     /// Softmax: the first class is the reference (margin fixed at 0).
     pub reference: bool,
+    /// Sparse coordinates per group (hash buckets, sparse vectors); their coefficients
+    /// follow all dense groups: group `g`'s at `dense_dim() + g * sparse ..`.
+    pub sparse: usize,
 }
 
 impl Layout {
@@ -37,19 +41,37 @@ impl Layout {
                 groups: if penalized { classes } else { classes - 1 },
                 classes,
                 reference: !penalized,
+                sparse: 0,
             },
             _ => Layout {
                 width,
                 groups: 1,
                 classes: 0,
                 reference: false,
+                sparse: 0,
             },
         }
     }
 
+    /// The layout with `sparse` sparse coordinates per group.
+    pub fn with_sparse(mut self, sparse: usize) -> Layout {
+        self.sparse = sparse;
+        self
+    }
+
     /// Length of the coefficient vector.
     pub fn dim(&self) -> usize {
+        self.dense_dim() + self.groups * self.sparse
+    }
+
+    /// Length of the dense part (intercepts and dense coefficients of every group).
+    pub fn dense_dim(&self) -> usize {
         self.groups * (1 + self.width)
+    }
+
+    /// Index of the first sparse coefficient of group `g`.
+    pub fn sparse_start(&self, g: usize) -> usize {
+        self.dense_dim() + g * self.sparse
     }
 
     /// Index of the intercept of group `g`.
@@ -59,7 +81,7 @@ impl Layout {
 
     /// True for coordinates that are intercepts (never penalized).
     pub fn is_intercept(&self, i: usize) -> bool {
-        i.is_multiple_of(1 + self.width)
+        i < self.dense_dim() && i.is_multiple_of(1 + self.width)
     }
 
     /// Softmax class of group `g`.
@@ -185,8 +207,17 @@ const HOLDOUT_MEMO: usize = 64;
 
 /// A 64-bit fingerprint of a point (its exact bits).
 fn point_key(x: &[f64]) -> u64 {
-    let bytes: Vec<u8> = x.iter().flat_map(|v| v.to_bits().to_le_bytes()).collect();
-    twox_hash::XxHash3_64::oneshot(&bytes)
+    use std::hash::Hasher;
+    // Streamed in chunks: no copy of a long (hashed) vector.
+    let mut h = twox_hash::XxHash3_64::default();
+    let mut buf = [0u8; 8 * 512];
+    for chunk in x.chunks(512) {
+        for (out, v) in buf.chunks_exact_mut(8).zip(chunk) {
+            out.copy_from_slice(&v.to_bits().to_le_bytes());
+        }
+        h.write(&buf[..8 * chunk.len()]);
+    }
+    h.finish()
 }
 
 /// The objective of DESIGN §4 on streamed data, with ridge; L1 is left to the optimizer.
@@ -503,6 +534,10 @@ fn accumulate(
             acc.grad[base + 1 + j] += dot;
         }
     }
+    // Sparse part: scatter the residuals into the hashed coordinates.
+    if !block.sparse.is_empty() {
+        sparse_kernel::add_gradient(&block.sparse, &acc.z, layout, &mut acc.grad);
+    }
 }
 
 /// Margins of every group for every row of `block`, group-major: `z[g * rows + i]`.
@@ -522,6 +557,10 @@ pub fn margins(block: &Block, x: &[f64], layout: Layout, z: &mut Vec<f64>) {
                 }
             }
         }
+    }
+    // Sparse part: add the hashed coefficients of every row's nonzeros.
+    if !block.sparse.is_empty() {
+        sparse_kernel::add_margins(&block.sparse, x, layout, z);
     }
 }
 

@@ -4,6 +4,7 @@
 
 pub mod glm;
 pub mod loss;
+pub mod sparse_kernel;
 
 pub use glm::{GlmObjective, Layout};
 pub use loss::Loss;

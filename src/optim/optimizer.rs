@@ -353,6 +353,25 @@ impl Optimizer {
         &self.state
     }
 
+    /// Lends the complete state by value to `f` and takes it back, so that a caller can
+    /// save it without copying its vectors (long ones with hashed features).
+    pub fn with_state<R>(&mut self, f: impl FnOnce(State) -> (State, R)) -> R {
+        let shell = State {
+            settings: self.state.settings.clone(),
+            x: Vec::new(),
+            g: Vec::new(),
+            s: Vec::new(),
+            y: Vec::new(),
+            recent_f: Vec::new(),
+            message: None,
+            ..self.state
+        };
+        let state = std::mem::replace(&mut self.state, shell);
+        let (state, r) = f(state);
+        self.state = state;
+        r
+    }
+
     /// The current point (the last accepted iterate).
     pub fn x(&self) -> &[f64] {
         &self.state.x
