@@ -11,6 +11,7 @@ use std::time::{Duration, Instant};
 
 use serde::{Deserialize, Serialize};
 
+use crate::cache::{CacheKey, CacheSlot, CacheStatus};
 use crate::checkpoint::{self, Checkpoint, PartialPass, Progress, RunIdentity};
 use crate::features::{self, Design, Feature, FeatureRequest, Summary};
 use crate::holdout::HoldoutSettings;
@@ -54,6 +55,41 @@ pub struct FitSettings {
     /// Rows held out of the training and scored in every pass (`--holdout`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub holdout: Option<HoldoutSettings>,
+    /// Where passes read their blocks from (`--cache DIR`, `--no-cache`).
+    #[serde(default, skip_serializing_if = "CacheSetting::is_default")]
+    pub cache: CacheSetting,
+    /// `--precision f32`: feature values rounded to `f32` as they are read (half the
+    /// traffic of `float64` data; changes the objective, so it is compared on resume).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub f32_values: bool,
+}
+
+/// Where the passes of a fit read their blocks from.
+#[derive(Debug, Clone, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum CacheSetting {
+    /// A block cache in the run directory (the default).
+    #[default]
+    Run,
+    /// A block cache in this directory (`--cache DIR`), shared by fits on the same data.
+    Dir(PathBuf),
+    /// Parquet on every pass (`--no-cache`).
+    Off,
+}
+
+impl CacheSetting {
+    fn is_default(&self) -> bool {
+        *self == CacheSetting::Run
+    }
+
+    /// The cache directory of a fit whose run directory is `run`.
+    pub fn dir(&self, run: Option<&Path>) -> Option<PathBuf> {
+        match self {
+            CacheSetting::Run => run.map(Path::to_path_buf),
+            CacheSetting::Dir(d) => Some(d.clone()),
+            CacheSetting::Off => None,
+        }
+    }
 }
 
 fn default_inference_max_features() -> usize {
@@ -77,6 +113,8 @@ impl FitSettings {
             inference: false,
             inference_max_features: default_inference_max_features(),
             holdout: None,
+            cache: CacheSetting::Run,
+            f32_values: false,
         }
     }
 
@@ -208,6 +246,8 @@ pub enum FitEvent<'a> {
     Warning(&'a str),
     /// An iteration was accepted.
     Iteration(&'a IterationRecord),
+    /// Information for the user (how passes read the data, the cache's size).
+    Note(&'a str),
     /// A resumed fit has read its checkpoint and goes on from this iteration.
     Resumed {
         /// Iterations done before the checkpoint.
@@ -229,6 +269,8 @@ pub struct FitOutcome {
     pub stop: FitStop,
     /// The log, one record per iteration.
     pub log: Vec<IterationRecord>,
+    /// How the passes read their blocks at the end.
+    pub cache: CacheStatus,
 }
 
 /// How a fit is watched from outside: a cancel flag and where to checkpoint.
@@ -323,6 +365,8 @@ struct Session {
     prior_seconds: f64,
     /// The last checkpoint saved between iterations; checkpoints inside a pass extend it.
     latest: Mutex<Option<Checkpoint>>,
+    /// The block cache.
+    cache: CacheSlot,
 }
 
 /// The settings that define the objective and the iterates (compared on resume).
@@ -342,7 +386,33 @@ fn objective_settings(settings: &FitSettings) -> serde_json::Value {
             serde_json::to_value(h).unwrap_or(serde_json::Value::Null),
         );
     }
+    if let (true, Some(map)) = (settings.f32_values, v.as_object_mut()) {
+        map.insert("precision".to_string(), serde_json::json!("f32"));
+    }
     v
+}
+
+/// The block cache of a fit: keyed by data and feature settings (never the penalty),
+/// in the directory `settings.cache` names.
+fn cache_slot(source: &Source, design: &Design, settings: &FitSettings, control: &Control) -> CacheSlot {
+    let holdout = settings
+        .holdout
+        .as_ref()
+        .map(|h| serde_json::json!({"fraction": h.fraction, "key": h.key}));
+    let key = CacheKey::new(source, design, holdout);
+    let dir = settings.cache.dir(control.checkpoint_dir.as_deref());
+    CacheSlot::open(dir.as_deref(), key)
+}
+
+/// Passes the cache's notes on as events.
+fn cache_notes(slot: &CacheSlot, events: &mut dyn FnMut(FitEvent<'_>)) {
+    for note in slot.take_notes() {
+        if note.warning {
+            events(FitEvent::Warning(&note.text));
+        } else {
+            events(FitEvent::Note(&note.text));
+        }
+    }
 }
 
 impl Session {
@@ -366,6 +436,7 @@ impl Session {
             self.settings.ridge,
             self.record.weight_sum,
         )
+        .with_cache(&self.cache)
     }
 
     fn seconds(&self) -> f64 {
@@ -438,7 +509,9 @@ pub fn fit(
         features::collect_stats_split(&source, &plan, request, &candidates, split.as_ref())?;
     check_rows(&source, request, &summary)?;
     let (design, mut warnings) = Design::new(request, &summary)?;
-    let design = design.with_holdout(split);
+    let design = design
+        .with_holdout(split)
+        .with_f32_values(settings.f32_values);
     if design.holdout().is_some() && summary.held_out_rows == 0 {
         warnings.push(
             "the holdout holds no row (the data are too few for the --holdout fraction); \
@@ -486,6 +559,8 @@ pub fn fit(
             since_best: 0,
         }),
     };
+    let cache = cache_slot(&source, &design, settings, control);
+    cache_notes(&cache, events);
     let mut session = Session {
         data: data.to_vec(),
         settings: settings.clone(),
@@ -497,10 +572,13 @@ pub fn fit(
         started,
         prior_seconds: 0.0,
         latest: Mutex::new(None),
+        cache,
     };
     let optim_settings = optimizer_settings(settings, layout);
     let mut objective = session.objective();
-    let optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
+    let optimizer = Optimizer::new(&mut objective, &x0, optim_settings);
+    cache_notes(&session.cache, events);
+    let optimizer = optimizer?;
     if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
         return Err(poisson_overflow(&place));
     }
@@ -591,8 +669,11 @@ pub fn resume(
         record.features.clone(),
         class_index,
     )
-    .with_holdout(split);
+    .with_holdout(split)
+    .with_f32_values(settings.f32_values);
     let plan = pass_plan(&source, &settings, control);
+    let cache = cache_slot(&source, &design, &settings, control);
+    cache_notes(&cache, events);
     let layout = Layout::new(
         request.loss,
         design.width(),
@@ -610,6 +691,7 @@ pub fn resume(
         started,
         prior_seconds: cp.progress.seconds,
         latest: Mutex::new(None),
+        cache,
     };
     let mut state = cp.state;
     if state.x.len() != layout.dim() {
@@ -688,7 +770,8 @@ fn drive(
         layout,
         settings.ridge,
         session.record.weight_sum,
-    );
+    )
+    .with_cache(&session.cache);
     if let (Some(every), Some(_)) = (control.checkpoint_every, &control.checkpoint_dir) {
         objective = objective.with_mid_pass_checkpoints(MidPassCheckpoints {
             every,
@@ -703,7 +786,9 @@ fn drive(
     let mut log = Vec::new();
     let mut message = None;
     let stop = loop {
-        let outcome = optimizer.step(&mut objective)?;
+        let outcome = optimizer.step(&mut objective);
+        cache_notes(&session.cache, events);
+        let outcome = outcome?;
         let (last, stopped) = match outcome {
             StepOutcome::Continue(it) => (Some(it), None),
             StepOutcome::Stopped {
@@ -862,7 +947,12 @@ fn drive(
         fit,
         inference: inferred.table,
     };
-    Ok(FitOutcome { model, stop, log })
+    Ok(FitOutcome {
+        model,
+        stop,
+        log,
+        cache: session.cache.status(),
+    })
 }
 
 /// The data files for a message: the path of a single file, or the count and the first.

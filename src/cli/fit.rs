@@ -82,6 +82,25 @@ fn set_aside_run_dir(run: &Path) -> Result<Option<PathBuf>> {
     Ok(Some(aside))
 }
 
+/// Moves the block caches of an earlier run directory (set aside) into the new one, so
+/// that a refit on the same data (another penalty) reuses them.
+fn keep_block_caches(aside: &Path, run: &Path) {
+    let Ok(entries) = std::fs::read_dir(aside) else {
+        return;
+    };
+    for entry in entries.flatten() {
+        let path = entry.path();
+        if path
+            .extension()
+            .is_some_and(|e| e == outcore::cache::EXTENSION)
+        {
+            if let Some(name) = path.file_name() {
+                let _ = std::fs::rename(&path, run.join(name));
+            }
+        }
+    }
+}
+
 impl Reporter<'_> {
     /// A progress line on stderr (beside the bar when there is one).
     fn say(&self, text: &str) {
@@ -147,7 +166,12 @@ impl Reporter<'_> {
                     self.set_aside = aside;
                     RunDir::create(self.run, self.data, self.model, self.settings)
                 }) {
-                    Ok(d) => self.run_dir = Some(d),
+                    Ok(d) => {
+                        self.run_dir = Some(d);
+                        if let Some(aside) = &self.set_aside {
+                            keep_block_caches(aside, self.run);
+                        }
+                    }
                     Err(e) => self.run_error = Some(e),
                 }
             }
@@ -173,6 +197,11 @@ impl Reporter<'_> {
                 }
             }
             FitEvent::Warning(w) => self.say(&format!("warning: {w}")),
+            FitEvent::Note(n) => {
+                if !self.quiet {
+                    self.say(n)
+                }
+            }
             FitEvent::Iteration(r) => {
                 if !self.accepted {
                     self.keep_new_run();
@@ -227,7 +256,11 @@ impl Reporter<'_> {
         if let Some(e) = self.run_error {
             return Err(e);
         }
-        let FitOutcome { model, stop, .. } = outcome;
+        let FitOutcome {
+            model, stop, cache, ..
+        } = outcome;
+        let peak_resident = outcore::memory::peak_resident();
+        let peak_anon = outcore::memory::peak_anon();
         model.save(self.model)?;
         let f = &model.fit;
         if !self.quiet {
@@ -247,6 +280,16 @@ impl Reporter<'_> {
             if let Some(m) = &f.message {
                 output::note(m);
             }
+            let mb = |v: Option<u64>| v.map_or("unknown".to_string(), outcore::cache::megabytes);
+            output::note(&format!(
+                "passes read {}; peak memory {} resident ({} anonymous; the rest is file-backed, such as mapped cache pages)",
+                match &cache.path {
+                    Some(p) => format!("the block cache {} ({})", p.display(), outcore::cache::megabytes(cache.bytes)),
+                    None => "Parquet".to_string(),
+                },
+                mb(peak_resident),
+                mb(peak_anon)
+            ));
             output::note(&format!("model written to {}", self.model.display()));
         }
         if json {
@@ -264,6 +307,11 @@ impl Reporter<'_> {
                 "rows": f.rows,
                 "features": model.features.len(),
                 "holdout_loss": f.holdout.as_ref().and_then(|h| h.loss),
+                "cache": cache,
+                "memory": {
+                    "peak_resident_bytes": peak_resident,
+                    "peak_anonymous_bytes": peak_anon,
+                },
             });
             output::line(&summary.to_string());
         }
