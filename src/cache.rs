@@ -172,16 +172,24 @@ impl CacheKey {
             columns: design.feature_columns().to_vec(),
             skip_missing_target: design.skip_missing_target,
             holdout,
-            precision: if design.rounds_to_f32() { "f32" } else { "stored" }.to_string(),
+            precision: if design.rounds_to_f32() {
+                "f32"
+            } else {
+                "stored"
+            }
+            .to_string(),
         }
     }
 
-    /// The cache file for this key in `dir`. The name hashes everything but the
-    /// fingerprint, so changed data at the same paths meet their old (stale) cache and
-    /// replace it instead of leaving it behind.
+    /// The cache file for this key in `dir`. The name hashes everything but what the
+    /// data's content decides (fingerprint, row and block counts), so changed data at
+    /// the same paths meet their old (stale) cache and replace it instead of leaving it
+    /// behind.
     pub fn path_in(&self, dir: &Path) -> PathBuf {
         let mut named = self.clone();
         named.fingerprint.clear();
+        named.rows = 0;
+        named.blocks = 0;
         let text = serde_json::to_string(&named).unwrap_or_default();
         let digest = Sha256::digest(text.as_bytes());
         let hex: String = digest[..8].iter().map(|b| format!("{b:02x}")).collect();
@@ -191,15 +199,15 @@ impl CacheKey {
     /// Names the first field that differs from `other`, for the warning.
     fn difference(&self, other: &CacheKey) -> &'static str {
         if self.format != other.format {
-            "its format"
+            "another format"
         } else if self.fingerprint != other.fingerprint || self.data != other.data {
-            "the data (files changed since it was written)"
+            "other data (the files changed since it was written)"
         } else if self.block_rows != other.block_rows || self.blocks != other.blocks {
-            "the block grid"
+            "another block grid"
         } else if self.columns != other.columns || self.weight != other.weight {
-            "the columns"
+            "other columns"
         } else {
-            "the target, holdout or precision settings"
+            "other target, holdout or precision settings"
         }
     }
 }
@@ -570,20 +578,19 @@ impl BlockCache {
         if crc32c::crc32c_append(crc32c::crc32c(key_bytes), index) != crc {
             return Err("its index fails its checksum".to_string());
         }
-        let stored: CacheKey = serde_json::from_slice(key_bytes)
-            .map_err(|_| "its key cannot be read".to_string())?;
+        let stored: CacheKey =
+            serde_json::from_slice(key_bytes).map_err(|_| "its key cannot be read".to_string())?;
         if &stored != key {
-            return Err(format!(
-                "it was built for other {}",
-                stored.difference(key)
-            ));
+            return Err(format!("it was built for {}", stored.difference(key)));
         }
         let entries: Vec<Entry> = index.chunks_exact(ENTRY).map(Entry::decode).collect();
         if entries.len() as u64 != key.blocks
             || entries.iter().any(|e| {
                 e.offset < HEADER
                     || e.offset % ALIGN != 0
-                    || e.offset.checked_add(e.len).is_none_or(|end| end > key_offset)
+                    || e.offset
+                        .checked_add(e.len)
+                        .is_none_or(|end| end > key_offset)
             })
         {
             return Err("its index does not match the block grid".to_string());
@@ -735,7 +742,9 @@ impl<'a> BlockView<'a> {
                 return Err("has a section of an unknown kind".to_string());
             }
             if len != (self.rows * width) as u64
-                || offset.checked_add(len).is_none_or(|e| e > self.bytes.len() as u64)
+                || offset
+                    .checked_add(len)
+                    .is_none_or(|e| e > self.bytes.len() as u64)
             {
                 return Err("is damaged (a section lies outside it)".to_string());
             }
@@ -828,7 +837,10 @@ impl CacheSlot {
         };
         let state = match dir {
             None => {
-                slot.note(false, "reading Parquet on every pass (--no-cache)".to_string());
+                slot.note(
+                    false,
+                    "reading Parquet on every pass (--no-cache)".to_string(),
+                );
                 CacheState::Off
             }
             Some(dir) => match BlockCache::open(dir, &slot.key) {
@@ -976,7 +988,10 @@ mod tests {
         assert!(matches!(c1, Values::F64(_)));
         let mut back = [0.0; 3];
         c1.decode_into(0, &mut back, |v| v);
-        assert_eq!(back.map(f64::to_bits), [0.1f64, 1e300, 3.0].map(f64::to_bits));
+        assert_eq!(
+            back.map(f64::to_bits),
+            [0.1f64, 1e300, 3.0].map(f64::to_bits)
+        );
         assert!(view.section(Kind::Dense, 2).is_none());
     }
 }

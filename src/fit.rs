@@ -394,7 +394,12 @@ fn objective_settings(settings: &FitSettings) -> serde_json::Value {
 
 /// The block cache of a fit: keyed by data and feature settings (never the penalty),
 /// in the directory `settings.cache` names.
-fn cache_slot(source: &Source, design: &Design, settings: &FitSettings, control: &Control) -> CacheSlot {
+fn cache_slot(
+    source: &Source,
+    design: &Design,
+    settings: &FitSettings,
+    control: &Control,
+) -> CacheSlot {
     let holdout = settings
         .holdout
         .as_ref()

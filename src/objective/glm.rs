@@ -393,7 +393,9 @@ impl GlmObjective<'_> {
                     Err(e) => {
                         slot.note(
                             true,
-                            format!("{e}; the block cache is not written, every pass reads Parquet"),
+                            format!(
+                                "{e}; the block cache is not written, every pass reads Parquet"
+                            ),
                         );
                         return (self.parquet_pass(x, starts, None), CacheState::Off);
                     }
@@ -438,7 +440,9 @@ impl GlmObjective<'_> {
                     Err(e) => {
                         slot.note(
                             true,
-                            format!("{e}; the block cache is not written, every pass reads Parquet"),
+                            format!(
+                                "{e}; the block cache is not written, every pass reads Parquet"
+                            ),
                         );
                         (outcome, CacheState::Off)
                     }
@@ -484,11 +488,12 @@ impl GlmObjective<'_> {
             every: mid.every,
             save: &save,
         });
-        let read = |shard: usize, skip: u64, each: &mut dyn FnMut(u64, (usize, BatchAt)) -> Result<()>| {
-            pass::read_parquet_shard(source, plan, &columns, shard, skip, &mut |i, at| {
-                each(at.batch.num_rows() as u64, (i, at))
-            })
-        };
+        let read =
+            |shard: usize, skip: u64, each: &mut dyn FnMut(u64, (usize, BatchAt)) -> Result<()>| {
+                pass::read_parquet_shard(source, plan, &columns, shard, skip, &mut |i, at| {
+                    each(at.batch.num_rows() as u64, (i, at))
+                })
+            };
         pass::run_units(
             source,
             plan,
@@ -529,14 +534,15 @@ impl GlmObjective<'_> {
             every: mid.every,
             save: &save,
         });
-        let read = |shard: usize, skip: u64, each: &mut dyn FnMut(u64, BlockView<'c>) -> Result<()>| {
-            let range = &ranges[shard];
-            for i in range.start + skip as usize..range.end {
-                let view = cache.block(i)?;
-                each(view.rows as u64, view)?;
-            }
-            Ok(())
-        };
+        let read =
+            |shard: usize, skip: u64, each: &mut dyn FnMut(u64, BlockView<'c>) -> Result<()>| {
+                let range = &ranges[shard];
+                for i in range.start + skip as usize..range.end {
+                    let view = cache.block(i)?;
+                    each(view.rows as u64, view)?;
+                }
+                Ok(())
+            };
         pass::run_units(
             source,
             plan,
@@ -814,7 +820,14 @@ fn fold_tile(
 }
 
 /// Adds one block built from Parquet to the shard sums, tile by tile.
-fn accumulate(acc: &mut PassSums, block: &Block, x: &[f64], layout: Layout, loss: Loss, source: &Source) {
+fn accumulate(
+    acc: &mut PassSums,
+    block: &Block,
+    x: &[f64],
+    layout: Layout,
+    loss: Loss,
+    source: &Source,
+) {
     let n = block.rows;
     let step = tile_rows(layout.width);
     let Scratch { z, row, .. } = &mut acc.scratch;
@@ -919,9 +932,7 @@ fn accumulate_cached(
             let out = &mut s.tile[j * step..j * step + rows];
             let (c, inv, impute) = (d.center, d.inv, d.impute);
             if d.indicator {
-                values.decode_into(r0, out, |v| {
-                    (if v.is_nan() { 1.0 } else { 0.0 } - c) * inv
-                });
+                values.decode_into(r0, out, |v| (if v.is_nan() { 1.0 } else { 0.0 } - c) * inv);
             } else {
                 values.decode_into(r0, out, |v| (if v.is_nan() { impute } else { v } - c) * inv);
             }
@@ -972,7 +983,13 @@ pub fn margins(block: &Block, x: &[f64], layout: Layout, z: &mut Vec<f64>) {
 
 /// Softmax loss per row of a tile; replaces the margins `z` with weighted residuals
 /// `w (p_k − [y = k])`.
-fn softmax_rows(t: &mut Totals, z: &mut [f64], margins: &mut Vec<f64>, tile: &Tile<'_>, layout: Layout) {
+fn softmax_rows(
+    t: &mut Totals,
+    z: &mut [f64],
+    margins: &mut Vec<f64>,
+    tile: &Tile<'_>,
+    layout: Layout,
+) {
     let n = tile.rows;
     let k = layout.classes;
     margins.clear();

@@ -126,7 +126,9 @@ mod tests {
 
     #[test]
     fn logistic_from_one_exponential_is_bitwise_the_two_function_form() {
-        for z in [-800.0, -30.0, -1.5, -1e-300, -0.0, 0.0, 1e-300, 0.7, 36.0, 710.0] {
+        for z in [
+            -800.0, -30.0, -1.5, -1e-300, -0.0, 0.0, 1e-300, 0.7, 36.0, 710.0,
+        ] {
             for y in [0.0, 1.0] {
                 let (l, d) = logistic(z, y);
                 assert_eq!(l.to_bits(), (softplus(z) - y * z).to_bits(), "z = {z}");
