@@ -126,7 +126,7 @@ pub struct FitArgs {
     pub checkpoint_every: Option<String>,
     /// Directory of the block cache (default: the run directory); fits on the same data
     /// and feature settings share it.
-    #[arg(long, value_name = "DIR", conflicts_with = "no_cache")]
+    #[arg(long, value_name = "DIR")]
     pub cache: Option<PathBuf>,
     /// Read Parquet on every pass instead of writing and reading a block cache (for a
     /// disk that cannot hold a second copy of the data).

@@ -1,5 +1,6 @@
 //! `outcore fit`, `predict` and `demo`.
 
+use std::ffi::OsString;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::AtomicBool;
 use std::sync::Arc;
@@ -63,6 +64,8 @@ struct Reporter<'a> {
     accepted: bool,
     /// The progress display (none with --quiet).
     ticker: Option<Ticker>,
+    /// Block caches moved from the set-aside run directory into the new one.
+    moved_caches: Vec<OsString>,
 }
 
 /// Moves an existing, non-empty run directory out of the way (a rename, so it costs
@@ -82,23 +85,31 @@ fn set_aside_run_dir(run: &Path) -> Result<Option<PathBuf>> {
     Ok(Some(aside))
 }
 
-/// Moves the block caches of an earlier run directory (set aside) into the new one, so
-/// that a refit on the same data (another penalty) reuses them.
-fn keep_block_caches(aside: &Path, run: &Path) {
-    let Ok(entries) = std::fs::read_dir(aside) else {
-        return;
+/// Moves the block caches of one run directory into another: from an earlier run
+/// directory (set aside) into the new one, so that a refit on the same data (another
+/// penalty) reuses them, and back when the new fit fails.
+/// Returns the names moved.
+fn keep_block_caches(from: &Path, to: &Path, only: Option<&[OsString]>) -> Vec<OsString> {
+    let mut moved = Vec::new();
+    let Ok(entries) = std::fs::read_dir(from) else {
+        return moved;
     };
     for entry in entries.flatten() {
         let path = entry.path();
-        if path
-            .extension()
-            .is_some_and(|e| e == outcore::cache::EXTENSION)
-        {
-            if let Some(name) = path.file_name() {
-                let _ = std::fs::rename(&path, run.join(name));
-            }
+        let Some(name) = path.file_name() else {
+            continue;
+        };
+        let wanted = match only {
+            Some(names) => names.iter().any(|n| n == name),
+            None => path
+                .extension()
+                .is_some_and(|e| e == outcore::cache::EXTENSION),
+        };
+        if wanted && std::fs::rename(&path, to.join(name)).is_ok() {
+            moved.push(name.to_os_string());
         }
     }
+    moved
 }
 
 impl Reporter<'_> {
@@ -126,6 +137,8 @@ impl Reporter<'_> {
         }
         if let Some(aside) = self.set_aside.take() {
             self.run_dir = None;
+            // The earlier run's block caches were moved into the new directory: back.
+            keep_block_caches(self.run, &aside, Some(&self.moved_caches));
             let _ = std::fs::remove_dir_all(self.run);
             if std::fs::rename(&aside, self.run).is_err() {
                 output::warning(&format!(
@@ -169,7 +182,7 @@ impl Reporter<'_> {
                     Ok(d) => {
                         self.run_dir = Some(d);
                         if let Some(aside) = &self.set_aside {
-                            keep_block_caches(aside, self.run);
+                            self.moved_caches = keep_block_caches(aside, self.run, None);
                         }
                     }
                     Err(e) => self.run_error = Some(e),
@@ -365,6 +378,7 @@ pub fn run(args: FitArgs) -> Result<i32> {
         set_aside: None,
         accepted: false,
         ticker,
+        moved_caches: Vec::new(),
     };
     let outcome = fit::fit(data, settings, &control, &mut |e| reporter.event(e));
     reporter.finish(outcome, args.json)
@@ -408,6 +422,7 @@ pub fn resume(args: ResumeArgs) -> Result<i32> {
         set_aside: None,
         accepted: true,
         ticker,
+        moved_caches: Vec::new(),
     };
     let outcome = fit::resume(&run, &started_with, &overrides, &control, &mut |e| {
         reporter.event(e)
