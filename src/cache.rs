@@ -42,7 +42,8 @@
 //!
 //! **Invariant:** the file is written as `NAME.tmp-PID` and renamed into place only when
 //! every block of the grid is in it; the file mapped by a reader is never written again
-//! (a rebuild writes a new file and renames it over the old name).
+//! (a rebuild writes a new file and renames it over the old name). It is not fsynced
+//! (a copy torn by a crash fails its checks and is rebuilt).
 
 use std::fs::{self, File, OpenOptions};
 use std::io::{Seek, SeekFrom, Write};
@@ -475,10 +476,12 @@ impl CacheWriter {
         header.extend_from_slice(&crc.to_le_bytes());
         header.resize(HEADER as usize, 0);
         file.write_all_at(&header, 0).map_err(io)?;
-        file.sync_all().map_err(io)?;
+        // Not synced: a cache is a copy, and one torn by a crash fails its checks and is
+        // rebuilt. Syncing a file the size of the data would cost the first pass several
+        // seconds per GB; the rename still makes the file appear whole or not at all to
+        // other processes.
         let size = index_offset + index.len() as u64;
         fs::rename(&self.tmp, &self.path).map_err(|e| Error::io(&self.path, e))?;
-        crate::atomic::sync_dir(&self.path);
         Ok(size)
     }
 
