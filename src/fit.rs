@@ -11,6 +11,7 @@ use std::time::{Duration, Instant};
 
 use serde::{Deserialize, Serialize};
 
+use crate::cache::{CacheKey, CacheSlot, CacheStatus};
 use crate::checkpoint::{self, Checkpoint, PartialPass, Progress, RunIdentity};
 use crate::features::{self, Design, Feature, FeatureRequest, Summary};
 use crate::holdout::HoldoutSettings;
@@ -57,6 +58,13 @@ pub struct FitSettings {
     /// Most memory in MB for the per-shard gradient buffers (`--gradient-memory`).
     #[serde(default = "default_gradient_memory_mb")]
     pub gradient_memory_mb: f64,
+    /// Where passes read their blocks from (`--cache DIR`, `--no-cache`).
+    #[serde(default, skip_serializing_if = "CacheSetting::is_default")]
+    pub cache: CacheSetting,
+    /// `--precision f32`: feature values rounded to `f32` as they are read (half the
+    /// traffic of `float64` data; changes the objective, so it is compared on resume).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub f32_values: bool,
 }
 
 /// Default bound of the per-shard gradient buffers, in MB.
@@ -64,6 +72,34 @@ pub const DEFAULT_GRADIENT_MEMORY_MB: f64 = 2048.0;
 
 fn default_gradient_memory_mb() -> f64 {
     DEFAULT_GRADIENT_MEMORY_MB
+}
+
+/// Where the passes of a fit read their blocks from.
+#[derive(Debug, Clone, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum CacheSetting {
+    /// A block cache in the run directory (the default).
+    #[default]
+    Run,
+    /// A block cache in this directory (`--cache DIR`), shared by fits on the same data.
+    Dir(PathBuf),
+    /// Parquet on every pass (`--no-cache`).
+    Off,
+}
+
+impl CacheSetting {
+    fn is_default(&self) -> bool {
+        *self == CacheSetting::Run
+    }
+
+    /// The cache directory of a fit whose run directory is `run`.
+    pub fn dir(&self, run: Option<&Path>) -> Option<PathBuf> {
+        match self {
+            CacheSetting::Run => run.map(Path::to_path_buf),
+            CacheSetting::Dir(d) => Some(d.clone()),
+            CacheSetting::Off => None,
+        }
+    }
 }
 
 fn default_inference_max_features() -> usize {
@@ -88,6 +124,8 @@ impl FitSettings {
             inference_max_features: default_inference_max_features(),
             holdout: None,
             gradient_memory_mb: DEFAULT_GRADIENT_MEMORY_MB,
+            cache: CacheSetting::Run,
+            f32_values: false,
         }
     }
 
@@ -257,7 +295,8 @@ pub enum FitEvent<'a> {
     Warning(&'a str),
     /// An iteration was accepted.
     Iteration(&'a IterationRecord),
-    /// Something worth a line in the log (such as the memory of a sparse design).
+    /// Something worth a line for the user (how passes read the data, the cache's size,
+    /// the memory of a sparse design).
     Note(&'a str),
     /// A resumed fit has read its checkpoint and goes on from this iteration.
     Resumed {
@@ -282,6 +321,8 @@ pub struct FitOutcome {
     pub log: Vec<IterationRecord>,
     /// The L-BFGS history pairs `(s, y)` at the end (for a warm start of a related fit).
     pub history: Vec<(Vec<f64>, Vec<f64>)>,
+    /// How the passes read their blocks at the end.
+    pub cache: CacheStatus,
 }
 
 /// How a fit is watched from outside: a cancel flag and where to checkpoint.
@@ -379,6 +420,8 @@ struct Session {
     prior_seconds: f64,
     /// The last checkpoint saved between iterations; checkpoints inside a pass extend it.
     latest: Mutex<Option<Checkpoint>>,
+    /// The block cache.
+    cache: CacheSlot,
 }
 
 /// The settings that define the objective and the iterates (compared on resume).
@@ -398,7 +441,46 @@ fn objective_settings(settings: &FitSettings) -> serde_json::Value {
             serde_json::to_value(h).unwrap_or(serde_json::Value::Null),
         );
     }
+    if let (true, Some(map)) = (settings.f32_values, v.as_object_mut()) {
+        map.insert("precision".to_string(), serde_json::json!("f32"));
+    }
     v
+}
+
+/// The block cache of a fit: keyed by data and feature settings (never the penalty),
+/// in the directory `settings.cache` names.
+fn cache_slot(
+    source: &Source,
+    design: &Design,
+    settings: &FitSettings,
+    control: &Control,
+) -> CacheSlot {
+    let holdout = settings
+        .holdout
+        .as_ref()
+        .map(|h| serde_json::json!({"fraction": h.fraction, "key": h.key}));
+    let key = CacheKey::new(source, design, holdout);
+    if design.sparse.is_some() && settings.cache != CacheSetting::Off {
+        // The cache format has no CSR sections yet: hashed and sparse-vector features
+        // are rebuilt from Parquet on every pass.
+        return CacheSlot::off(
+            key,
+            "reading Parquet on every pass: the block cache does not hold hashed or sparse-vector features yet".to_string(),
+        );
+    }
+    let dir = settings.cache.dir(control.checkpoint_dir.as_deref());
+    CacheSlot::open(dir.as_deref(), key)
+}
+
+/// Passes the cache's notes on as events.
+fn cache_notes(slot: &CacheSlot, events: &mut dyn FnMut(FitEvent<'_>)) {
+    for note in slot.take_notes() {
+        if note.warning {
+            events(FitEvent::Warning(&note.text));
+        } else {
+            events(FitEvent::Note(&note.text));
+        }
+    }
 }
 
 impl Session {
@@ -422,6 +504,7 @@ impl Session {
             self.settings.ridge,
             self.record.weight_sum,
         )
+        .with_cache(&self.cache)
     }
 
     fn seconds(&self) -> f64 {
@@ -615,7 +698,9 @@ pub fn prepare(
         features::collect_stats_split(&source, &plan, request, &candidates, split.as_ref())?;
     check_rows(&source, request, &summary)?;
     let (design, mut warnings) = Design::new(request, &summary)?;
-    let design = design.with_holdout(split);
+    let design = design
+        .with_holdout(split)
+        .with_f32_values(settings.f32_values);
     if design.holdout().is_some() && summary.held_out_rows == 0 {
         warnings.push(
             "the holdout holds no row (the data are too few for the --holdout fraction); \
@@ -732,6 +817,8 @@ pub fn fit_prepared(
             None => Vec::new(),
         },
     };
+    let cache = cache_slot(&source, &design, settings, control);
+    cache_notes(&cache, events);
     let mut session = Session {
         data: prepared.data.clone(),
         settings: settings.clone(),
@@ -743,10 +830,13 @@ pub fn fit_prepared(
         started,
         prior_seconds: 0.0,
         latest: Mutex::new(None),
+        cache,
     };
     let optim_settings = optimizer_settings(settings, layout);
     let mut objective = session.objective();
-    let mut optimizer = Optimizer::new(&mut objective, &x0, optim_settings)?;
+    let optimizer = Optimizer::new(&mut objective, &x0, optim_settings);
+    cache_notes(&session.cache, events);
+    let mut optimizer = optimizer?;
     if let Some(place) = objective.last_extras().and_then(|e| e.overflow.clone()) {
         return Err(poisson_overflow(&place));
     }
@@ -849,8 +939,11 @@ pub fn resume(
         record.features.clone(),
         class_index,
     )
-    .with_holdout(split);
+    .with_holdout(split)
+    .with_f32_values(settings.f32_values);
     let plan = pass_plan(&source, &settings, control);
+    let cache = cache_slot(&source, &design, &settings, control);
+    cache_notes(&cache, events);
     let layout = Layout::new(
         request.loss,
         design.width(),
@@ -869,6 +962,7 @@ pub fn resume(
         started,
         prior_seconds: cp.progress.seconds,
         latest: Mutex::new(None),
+        cache,
     };
     let mut state = cp.state;
     if state.x.len() != layout.dim() {
@@ -950,7 +1044,8 @@ fn drive(
         layout,
         settings.ridge,
         session.record.weight_sum,
-    );
+    )
+    .with_cache(&session.cache);
     if let (Some(every), Some(_)) = (control.checkpoint_every, &control.checkpoint_dir) {
         objective = objective.with_mid_pass_checkpoints(MidPassCheckpoints {
             every,
@@ -965,7 +1060,9 @@ fn drive(
     let mut log = Vec::new();
     let mut message = None;
     let stop = loop {
-        let outcome = optimizer.step(&mut objective)?;
+        let outcome = optimizer.step(&mut objective);
+        cache_notes(&session.cache, events);
+        let outcome = outcome?;
         let (last, stopped) = match outcome {
             StepOutcome::Continue(it) => (Some(it), None),
             StepOutcome::Stopped {
@@ -1144,6 +1241,7 @@ fn drive(
         stop,
         log,
         history,
+        cache: session.cache.status(),
     })
 }
 

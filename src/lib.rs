@@ -45,6 +45,7 @@
 #![allow(clippy::needless_range_loop)]
 
 pub mod atomic;
+pub mod cache;
 pub mod checkpoint;
 pub mod demo;
 pub mod error;
@@ -53,6 +54,7 @@ pub mod features;
 pub mod fit;
 pub mod holdout;
 pub mod inference;
+pub mod memory;
 pub mod metrics;
 pub mod model;
 pub mod objective;

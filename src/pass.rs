@@ -147,6 +147,71 @@ where
     I: Fn() -> A + Sync,
     F: Fn(&mut A, BatchAt) -> Result<()> + Sync,
 {
+    let read = |shard: usize, skip: u64, each: &mut dyn FnMut(u64, BatchAt) -> Result<()>| {
+        read_parquet_shard(source, plan, columns, shard, skip, &mut |_, at| {
+            each(at.batch.num_rows() as u64, at)
+        })
+    };
+    run_units(source, plan, init, fold, read, starts, snapshots)
+}
+
+/// Reads the blocks of `shard` after its first `skip` from Parquet, decoding only
+/// `columns`, and calls `each` with every block's index in the whole grid (data order)
+/// and its batch.
+pub fn read_parquet_shard(
+    source: &Source,
+    plan: &PassPlan,
+    columns: &[&str],
+    shard: usize,
+    skip: u64,
+    each: &mut dyn FnMut(usize, BatchAt) -> Result<()>,
+) -> Result<()> {
+    let block_rows = source.block_rows() as u64;
+    let mut index = shard_block_ranges(plan, block_rows)[shard].start + skip as usize;
+    for segment in &skip_blocks(&plan.shards[shard], skip, block_rows) {
+        source.read_segment(segment, columns, |at| {
+            let i = index;
+            index += 1;
+            each(i, at)
+        })?;
+    }
+    Ok(())
+}
+
+/// The blocks of every shard as ranges of block indices of the whole grid (data order):
+/// shard `s` holds blocks `ranges[s]`.
+pub fn shard_block_ranges(plan: &PassPlan, block_rows: u64) -> Vec<std::ops::Range<usize>> {
+    let mut start = 0usize;
+    plan.shards
+        .iter()
+        .map(|segments| {
+            let blocks: u64 = segments.iter().map(|s| s.rows.div_ceil(block_rows)).sum();
+            let range = start..start + blocks as usize;
+            start = range.end;
+            range
+        })
+        .collect()
+}
+
+/// The pass engine behind [`run_resumable`], over any source of blocks: `read(shard,
+/// skip, each)` must call `each(rows, unit)` for every block of `shard` after its first
+/// `skip`, in data order, on the calling thread, and stop at the first error `each`
+/// returns. Determinism, cancellation and snapshots are as for [`run_resumable`].
+pub fn run_units<A, T, I, F, R>(
+    source: &Source,
+    plan: &PassPlan,
+    init: I,
+    fold: F,
+    read: R,
+    starts: Vec<ShardStart<A>>,
+    snapshots: Option<Snapshots<'_, A>>,
+) -> Result<Vec<A>>
+where
+    A: Send + Clone,
+    I: Fn() -> A + Sync,
+    F: Fn(&mut A, T) -> Result<()> + Sync,
+    R: Fn(usize, u64, &mut dyn FnMut(u64, T) -> Result<()>) -> Result<()> + Sync,
+{
     let n = plan.shards.len();
     if !starts.is_empty() && starts.len() != n {
         return Err(Error::internal(format!(
@@ -161,7 +226,6 @@ where
     } else {
         starts.into_iter().map(|s| Mutex::new(Some(s))).collect()
     };
-    let block_rows = source.block_rows() as u64;
     if let Some(p) = &plan.progress {
         let rows: u64 = plan.shards.iter().flatten().map(|s| s.rows).sum();
         p.rows_total.store(rows, Ordering::Relaxed);
@@ -219,40 +283,42 @@ where
         }
         let mut blocks_done = skip;
         let mut seen = 0u64;
-        let mut outcome = Ok(());
-        let segments = skip_blocks(&plan.shards[shard], skip, block_rows);
-        for segment in &segments {
-            outcome = source.read_segment(segment, columns, |batch| {
-                if cancelled() {
-                    if want_snapshots {
-                        publish(
-                            shard,
-                            Published::Running(u64::MAX, Some((blocks_done, acc.clone()))),
-                        );
-                    }
-                    return Err(Error::interrupted());
-                }
-                let rows = batch.batch.num_rows() as u64;
-                fold(&mut acc, batch)?;
-                blocks_done += 1;
-                if let Some(p) = &plan.progress {
-                    p.rows_done.fetch_add(rows, Ordering::Relaxed);
-                }
-                if want_snapshots {
-                    let g = generation.load(Ordering::Acquire);
-                    if g > seen {
-                        seen = g;
-                        publish(
-                            shard,
-                            Published::Running(g, Some((blocks_done, acc.clone()))),
-                        );
-                    }
-                }
-                Ok(())
-            });
-            if outcome.is_err() || failed.load(Ordering::Relaxed) {
-                break;
+        // Set when this shard stops because another one failed: not an error of its own.
+        let mut stopped = false;
+        let outcome = read(shard, skip, &mut |rows, unit| {
+            if failed.load(Ordering::Relaxed) {
+                stopped = true;
+                return Err(Error::internal("stopped because another shard failed"));
             }
+            if cancelled() {
+                if want_snapshots {
+                    publish(
+                        shard,
+                        Published::Running(u64::MAX, Some((blocks_done, acc.clone()))),
+                    );
+                }
+                return Err(Error::interrupted());
+            }
+            fold(&mut acc, unit)?;
+            blocks_done += 1;
+            if let Some(p) = &plan.progress {
+                p.rows_done.fetch_add(rows, Ordering::Relaxed);
+            }
+            if want_snapshots {
+                let g = generation.load(Ordering::Acquire);
+                if g > seen {
+                    seen = g;
+                    publish(
+                        shard,
+                        Published::Running(g, Some((blocks_done, acc.clone()))),
+                    );
+                }
+            }
+            Ok(())
+        });
+        if stopped {
+            finished.fetch_add(1, Ordering::Relaxed);
+            continue;
         }
         let result = match outcome {
             Ok(()) => {

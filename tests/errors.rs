@@ -287,6 +287,24 @@ fn cases(w: &World) -> Vec<Case> {
     let mut out = Vec::new();
     let lx = ["--target", "y", "--features", "x1,x2"];
 
+    // --- block cache flags ---
+    let mut extra = lx.to_vec();
+    extra.extend(["--precision", "half"]);
+    out.push(case(
+        "unknown --precision",
+        fit(w, std::slice::from_ref(&good), &extra),
+        &["--precision", "half", "stored or f32"],
+    ));
+    let cache_dir = w.out("cache-dir");
+    let cache_arg = World::s(&cache_dir);
+    let mut extra = lx.to_vec();
+    extra.extend(["--cache", cache_arg.as_str(), "--no-cache"]);
+    out.push(case(
+        "--cache with --no-cache",
+        fit(w, std::slice::from_ref(&good), &extra),
+        &["--cache", "--no-cache"],
+    ));
+
     // --- files that are not (complete) Parquet ---
     let p = w.input("notes.parquet");
     fs::write(&p, "id,x\n1,2\n").expect("write");

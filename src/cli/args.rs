@@ -158,6 +158,19 @@ pub struct FitArgs {
     /// `250ms` or seconds (default 5m).
     #[arg(long, value_name = "DURATION")]
     pub checkpoint_every: Option<String>,
+    /// Directory of the block cache (default: the run directory); fits on the same data
+    /// and feature settings share it.
+    #[arg(long, value_name = "DIR")]
+    pub cache: Option<PathBuf>,
+    /// Read Parquet on every pass instead of writing and reading a block cache (for a
+    /// disk that cannot hold a second copy of the data).
+    #[arg(long)]
+    pub no_cache: bool,
+    /// Precision of feature values: `stored` (default: as in the file, float64 stays
+    /// f64) or `f32` (float64 values rounded to f32: half the memory traffic, fewer
+    /// digits; sums stay f64).
+    #[arg(long, value_name = "P")]
+    pub precision: Option<String>,
     /// Print one JSON summary object on stdout at the end (progress stays on stderr).
     #[arg(long)]
     pub json: bool,

@@ -8,7 +8,7 @@ use serde::Deserialize;
 
 use outcore::features::hashing::{self, SparseRequest};
 use outcore::features::{FeatureRequest, MissingPolicy};
-use outcore::fit::FitSettings;
+use outcore::fit::{CacheSetting, FitSettings};
 use outcore::holdout::HoldoutSettings;
 use outcore::objective::Loss;
 use outcore::{Error, Result};
@@ -49,6 +49,9 @@ struct FitConfig {
     hash_bits: Option<u32>,
     sparse_vector: Option<Vec<String>>,
     gradient_memory: Option<f64>,
+    cache: Option<PathBuf>,
+    no_cache: Option<bool>,
+    precision: Option<String>,
 }
 
 /// A fit fully resolved from flags and settings file.
@@ -253,6 +256,28 @@ pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
     if settings.block_rows == 0 {
         return Err(Error::usage("--block-rows must be at least 1"));
     }
+    let no_cache = args.no_cache || config.no_cache.unwrap_or(false);
+    settings.cache = match (args.cache.clone(), config.cache.map(|c| base.join(c))) {
+        (Some(_), _) | (None, Some(_)) if no_cache => {
+            return Err(Error::usage(
+                "--cache DIR and --no-cache contradict each other; give one of them",
+            ))
+        }
+        (Some(dir), _) | (None, Some(dir)) => {
+            CacheSetting::Dir(std::path::absolute(&dir).unwrap_or(dir))
+        }
+        (None, None) if no_cache => CacheSetting::Off,
+        (None, None) => CacheSetting::Run,
+    };
+    settings.f32_values = match args.precision.as_deref().or(config.precision.as_deref()) {
+        None | Some("stored") => false,
+        Some("f32") => true,
+        Some(other) => {
+            return Err(Error::usage(format!(
+                "unknown --precision '{other}'; choose stored or f32"
+            )))
+        }
+    };
     settings.validate()?;
     let run = match (&args.run, config.run) {
         (Some(r), _) => r.clone(),

@@ -1,5 +1,6 @@
 //! `outcore fit`, `predict` and `demo`.
 
+use std::ffi::OsString;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::AtomicBool;
 use std::sync::Arc;
@@ -63,6 +64,8 @@ struct Reporter<'a> {
     accepted: bool,
     /// The progress display (none with --quiet).
     ticker: Option<Ticker>,
+    /// Block caches moved from the set-aside run directory into the new one.
+    moved_caches: Vec<OsString>,
 }
 
 /// Moves an existing, non-empty run directory out of the way (a rename, so it costs
@@ -80,6 +83,33 @@ fn set_aside_run_dir(run: &Path) -> Result<Option<PathBuf>> {
     let aside = run.with_file_name(name);
     std::fs::rename(run, &aside).map_err(|e| Error::io(run, e))?;
     Ok(Some(aside))
+}
+
+/// Moves the block caches of one run directory into another: from an earlier run
+/// directory (set aside) into the new one, so that a refit on the same data (another
+/// penalty) reuses them, and back when the new fit fails.
+/// Returns the names moved.
+fn keep_block_caches(from: &Path, to: &Path, only: Option<&[OsString]>) -> Vec<OsString> {
+    let mut moved = Vec::new();
+    let Ok(entries) = std::fs::read_dir(from) else {
+        return moved;
+    };
+    for entry in entries.flatten() {
+        let path = entry.path();
+        let Some(name) = path.file_name() else {
+            continue;
+        };
+        let wanted = match only {
+            Some(names) => names.iter().any(|n| n == name),
+            None => path
+                .extension()
+                .is_some_and(|e| e == outcore::cache::EXTENSION),
+        };
+        if wanted && std::fs::rename(&path, to.join(name)).is_ok() {
+            moved.push(name.to_os_string());
+        }
+    }
+    moved
 }
 
 impl Reporter<'_> {
@@ -107,6 +137,8 @@ impl Reporter<'_> {
         }
         if let Some(aside) = self.set_aside.take() {
             self.run_dir = None;
+            // The earlier run's block caches were moved into the new directory: back.
+            keep_block_caches(self.run, &aside, Some(&self.moved_caches));
             let _ = std::fs::remove_dir_all(self.run);
             if std::fs::rename(&aside, self.run).is_err() {
                 output::warning(&format!(
@@ -147,7 +179,12 @@ impl Reporter<'_> {
                     self.set_aside = aside;
                     RunDir::create(self.run, self.data, self.model, self.settings)
                 }) {
-                    Ok(d) => self.run_dir = Some(d),
+                    Ok(d) => {
+                        self.run_dir = Some(d);
+                        if let Some(aside) = &self.set_aside {
+                            self.moved_caches = keep_block_caches(aside, self.run, None);
+                        }
+                    }
                     Err(e) => self.run_error = Some(e),
                 }
             }
@@ -232,7 +269,11 @@ impl Reporter<'_> {
         if let Some(e) = self.run_error {
             return Err(e);
         }
-        let FitOutcome { model, stop, .. } = outcome;
+        let FitOutcome {
+            model, stop, cache, ..
+        } = outcome;
+        let peak_resident = outcore::memory::peak_resident();
+        let peak_anon = outcore::memory::peak_anon();
         model.save(self.model)?;
         let f = &model.fit;
         if !self.quiet {
@@ -252,6 +293,16 @@ impl Reporter<'_> {
             if let Some(m) = &f.message {
                 output::note(m);
             }
+            let mb = |v: Option<u64>| v.map_or("unknown".to_string(), outcore::cache::megabytes);
+            output::note(&format!(
+                "passes read {}; peak memory {} resident ({} anonymous; the rest is file-backed, such as mapped cache pages)",
+                match &cache.path {
+                    Some(p) => format!("the block cache {} ({})", p.display(), outcore::cache::megabytes(cache.bytes)),
+                    None => "Parquet".to_string(),
+                },
+                mb(peak_resident),
+                mb(peak_anon)
+            ));
             output::note(&format!("model written to {}", self.model.display()));
         }
         if json {
@@ -269,6 +320,11 @@ impl Reporter<'_> {
                 "rows": f.rows,
                 "features": model.features.len(),
                 "holdout_loss": f.holdout.as_ref().and_then(|h| h.loss),
+                "cache": cache,
+                "memory": {
+                    "peak_resident_bytes": peak_resident,
+                    "peak_anonymous_bytes": peak_anon,
+                },
             });
             output::line(&summary.to_string());
         }
@@ -322,6 +378,7 @@ pub fn run(args: FitArgs) -> Result<i32> {
         set_aside: None,
         accepted: false,
         ticker,
+        moved_caches: Vec::new(),
     };
     let outcome = fit::fit(data, settings, &control, &mut |e| reporter.event(e));
     reporter.finish(outcome, args.json)
@@ -365,6 +422,7 @@ pub fn resume(args: ResumeArgs) -> Result<i32> {
         set_aside: None,
         accepted: true,
         ticker,
+        moved_caches: Vec::new(),
     };
     let outcome = fit::resume(&run, &started_with, &overrides, &control, &mut |e| {
         reporter.event(e)

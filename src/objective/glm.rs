@@ -2,13 +2,15 @@
 
 use std::time::Duration;
 
+use crate::cache::{encode_block, BlockCache, BlockView, CacheSlot, CacheState, CacheWriter, Kind};
 use crate::checkpoint::{PartialPass, ShardProgress};
+use crate::features::sparse::SparseRows;
 use crate::features::{Block, Design};
 use crate::objective::loss::{self, Loss, MAX_EXP_MARGIN};
 use crate::objective::sparse_kernel;
 use crate::optim::Objective;
 use crate::pass::{self, PassPlan, ShardStart, Snapshots};
-use crate::source::Source;
+use crate::source::{BatchAt, Source};
 use crate::Result;
 
 /// How the coefficient vector is laid out: `groups` runs of `1 + width` values, each an
@@ -94,9 +96,16 @@ impl Layout {
     }
 }
 
-/// Per-shard sums of one evaluation pass.
+/// Per-shard sums of one evaluation pass, with the shard's scratch buffers.
 #[derive(Debug)]
 struct PassSums {
+    t: Totals,
+    scratch: Scratch,
+}
+
+/// The sums themselves.
+#[derive(Debug, Clone)]
+struct Totals {
     loss: f64,
     grad: Vec<f64>,
     /// Weight of rows the current coefficients classify wrongly (logistic, softmax).
@@ -107,22 +116,36 @@ struct PassSums {
     holdout_loss: f64,
     /// Weight of the held-out rows.
     holdout_weight: f64,
+}
+
+/// A shard's reusable buffers: allocated on its first block, then only reused, so the
+/// hot path allocates nothing per block or row (their size is `O(block + tile × width)`).
+#[derive(Debug, Default)]
+struct Scratch {
+    /// The block built from Parquet.
     block: Block,
+    /// Raw values of the block (cache build pass).
+    raw: Vec<f64>,
+    /// The encoded block (cache build pass).
+    encoded: Vec<u8>,
+    /// Margins, then residuals, of a tile: `groups × tile` values.
     z: Vec<f64>,
+    /// Softmax margins of one row.
+    row: Vec<f64>,
+    /// Features of a tile decoded from the cache, column-major with stride `tile`.
+    tile: Vec<f64>,
+    /// Labels, weights and holdout flags of a cached block.
+    y: Vec<f64>,
+    w: Vec<f64>,
+    held: Vec<bool>,
 }
 
 /// A copy of the sums only: the scratch buffers are not part of a shard's state.
 impl Clone for PassSums {
     fn clone(&self) -> Self {
         PassSums {
-            loss: self.loss,
-            grad: self.grad.clone(),
-            wrong: self.wrong,
-            overflow: self.overflow.clone(),
-            holdout_loss: self.holdout_loss,
-            holdout_weight: self.holdout_weight,
-            block: Block::default(),
-            z: Vec::new(),
+            t: self.t.clone(),
+            scratch: Scratch::default(),
         }
     }
 }
@@ -130,28 +153,30 @@ impl Clone for PassSums {
 impl PassSums {
     fn empty(dim: usize) -> PassSums {
         PassSums {
-            loss: 0.0,
-            grad: vec![0.0; dim],
-            wrong: 0.0,
-            overflow: None,
-            holdout_loss: 0.0,
-            holdout_weight: 0.0,
-            block: Block::default(),
-            z: Vec::new(),
+            t: Totals {
+                loss: 0.0,
+                grad: vec![0.0; dim],
+                wrong: 0.0,
+                overflow: None,
+                holdout_loss: 0.0,
+                holdout_weight: 0.0,
+            },
+            scratch: Scratch::default(),
         }
     }
 
     /// The sums as saved in a checkpoint: `[loss, wrong, overflowed, gradient…]`, then
     /// `[holdout loss, holdout weight]` unless both are +0 (no held-out row read yet).
     fn to_vec(&self) -> Vec<f64> {
-        let mut v = Vec::with_capacity(5 + self.grad.len());
-        v.push(self.loss);
-        v.push(self.wrong);
-        v.push(if self.overflow.is_some() { 1.0 } else { 0.0 });
-        v.extend_from_slice(&self.grad);
-        if self.holdout_loss.to_bits() != 0 || self.holdout_weight.to_bits() != 0 {
-            v.push(self.holdout_loss);
-            v.push(self.holdout_weight);
+        let t = &self.t;
+        let mut v = Vec::with_capacity(5 + self.t.grad.len());
+        v.push(t.loss);
+        v.push(t.wrong);
+        v.push(if t.overflow.is_some() { 1.0 } else { 0.0 });
+        v.extend_from_slice(&t.grad);
+        if t.holdout_loss.to_bits() != 0 || t.holdout_weight.to_bits() != 0 {
+            v.push(t.holdout_loss);
+            v.push(t.holdout_weight);
         }
         v
     }
@@ -161,15 +186,16 @@ impl PassSums {
             return None;
         }
         let mut sums = PassSums::empty(dim);
-        sums.loss = v[0];
-        sums.wrong = v[1];
+        let t = &mut sums.t;
+        t.loss = v[0];
+        t.wrong = v[1];
         if v[2] != 0.0 {
-            sums.overflow = Some("a row read before the fit was resumed".to_string());
+            t.overflow = Some("a row read before the fit was resumed".to_string());
         }
-        sums.grad.copy_from_slice(&v[3..3 + dim]);
+        t.grad.copy_from_slice(&v[3..3 + dim]);
         if v.len() == 5 + dim {
-            sums.holdout_loss = v[3 + dim];
-            sums.holdout_weight = v[4 + dim];
+            t.holdout_loss = v[3 + dim];
+            t.holdout_weight = v[4 + dim];
         }
         Some(sums)
     }
@@ -236,6 +262,8 @@ pub struct GlmObjective<'a> {
     resume_from: Option<PartialPass>,
     /// `(point fingerprint, holdout loss)` of the last evaluations, newest last.
     holdout_memo: Vec<(u64, f64)>,
+    /// The block cache of the fit (none: every pass reads Parquet).
+    cache: Option<&'a CacheSlot>,
 }
 
 impl<'a> GlmObjective<'a> {
@@ -261,7 +289,14 @@ impl<'a> GlmObjective<'a> {
             mid_pass: None,
             resume_from: None,
             holdout_memo: Vec::new(),
+            cache: None,
         }
+    }
+
+    /// Reads blocks through the fit's block cache (building it in the first full pass).
+    pub fn with_cache(mut self, cache: &'a CacheSlot) -> Self {
+        self.cache = Some(cache);
+        self
     }
 
     /// The holdout loss of the most recent evaluation at exactly `x`, if one of the last
@@ -352,6 +387,208 @@ impl<'a> GlmObjective<'a> {
     }
 }
 
+impl GlmObjective<'_> {
+    /// One pass in the cache's current state; returns the sums and the next state.
+    fn pass_with_cache(
+        &self,
+        slot: &CacheSlot,
+        state: CacheState,
+        x: &[f64],
+        starts: Vec<ShardStart<PassSums>>,
+    ) -> (Result<Vec<PassSums>>, CacheState) {
+        match state {
+            CacheState::Off => (self.parquet_pass(x, starts, None), CacheState::Off),
+            CacheState::Ready(cache) => {
+                let retry = starts.clone();
+                let outcome = self.cached_pass(&cache, x, starts);
+                match (&outcome, cache.corruption()) {
+                    (Err(_), Some(why)) => {
+                        let path = cache.path().to_path_buf();
+                        slot.note(
+                            true,
+                            format!(
+                                "the block cache {} {why}; it is rebuilt from Parquet in this pass",
+                                path.display()
+                            ),
+                        );
+                        drop(cache);
+                        crate::cache::remove(&path);
+                        let dir = path.parent().map(|p| p.to_path_buf()).unwrap_or_default();
+                        self.pass_with_cache(slot, CacheState::Build(dir), x, retry)
+                    }
+                    _ => (outcome, CacheState::Ready(cache)),
+                }
+            }
+            CacheState::Build(dir) => {
+                let writer = match CacheWriter::create(&dir, slot.key()) {
+                    Ok(w) => w,
+                    Err(e) => {
+                        slot.note(
+                            true,
+                            format!(
+                                "{e}; the block cache is not written, every pass reads Parquet"
+                            ),
+                        );
+                        return (self.parquet_pass(x, starts, None), CacheState::Off);
+                    }
+                };
+                let started = std::time::Instant::now();
+                let outcome = self.parquet_pass(x, starts, Some(&writer));
+                if outcome.is_err() {
+                    writer.abandon();
+                    return (outcome, CacheState::Build(dir));
+                }
+                let path = writer.path().to_path_buf();
+                match writer.finish() {
+                    Ok(bytes) => match BlockCache::open(&dir, slot.key()) {
+                        crate::cache::Opened::Ready(cache) => {
+                            slot.note(
+                                false,
+                                format!(
+                                    "wrote the block cache {} ({}) in {:.2}s; later passes read it",
+                                    path.display(),
+                                    crate::cache::megabytes(bytes),
+                                    started.elapsed().as_secs_f64()
+                                ),
+                            );
+                            (outcome, CacheState::Ready(cache))
+                        }
+                        _ => {
+                            slot.note(
+                                true,
+                                format!(
+                                    "the block cache {} just written cannot be read back; every pass reads Parquet",
+                                    path.display()
+                                ),
+                            );
+                            (outcome, CacheState::Off)
+                        }
+                    },
+                    // A pass continued from a checkpoint did not see every block: the
+                    // next full pass builds the cache.
+                    Err(e) if e.kind() == crate::ErrorKind::Internal => {
+                        (outcome, CacheState::Build(dir))
+                    }
+                    Err(e) => {
+                        slot.note(
+                            true,
+                            format!(
+                                "{e}; the block cache is not written, every pass reads Parquet"
+                            ),
+                        );
+                        (outcome, CacheState::Off)
+                    }
+                }
+            }
+        }
+    }
+
+    /// Mid-pass snapshot saving for a pass at `x`.
+    fn save_partial(&self, x: &[f64], states: Vec<ShardStart<PassSums>>) -> Result<()> {
+        let Some(mid) = &self.mid_pass else {
+            return Ok(());
+        };
+        let shards = states
+            .iter()
+            .map(|s| match s {
+                ShardStart::Fresh => ShardProgress::NotStarted,
+                ShardStart::Partial { blocks, acc } => ShardProgress::Partial {
+                    blocks: *blocks,
+                    sums: acc.to_vec(),
+                },
+                ShardStart::Done(acc) => ShardProgress::Done { sums: acc.to_vec() },
+            })
+            .collect();
+        (mid.save)(PartialPass {
+            point: x.to_vec(),
+            shards,
+        })
+    }
+
+    /// A pass that decodes Parquet, writing every block into `writer` when given.
+    fn parquet_pass(
+        &self,
+        x: &[f64],
+        starts: Vec<ShardStart<PassSums>>,
+        writer: Option<&CacheWriter>,
+    ) -> Result<Vec<PassSums>> {
+        let (layout, design, source, plan) = (self.layout, self.design, self.source, self.plan);
+        let columns = design.training_columns();
+        let ncols = design.feature_columns().len();
+        let save = |states: Vec<ShardStart<PassSums>>| self.save_partial(x, states);
+        let snapshots = self.mid_pass.as_ref().map(|mid| Snapshots {
+            every: mid.every,
+            save: &save,
+        });
+        let read =
+            |shard: usize, skip: u64, each: &mut dyn FnMut(u64, (usize, BatchAt)) -> Result<()>| {
+                pass::read_parquet_shard(source, plan, &columns, shard, skip, &mut |i, at| {
+                    each(at.batch.num_rows() as u64, (i, at))
+                })
+            };
+        pass::run_units(
+            source,
+            plan,
+            || PassSums::empty(layout.dim()),
+            |acc: &mut PassSums, (index, at): (usize, BatchAt)| {
+                let s = &mut acc.scratch;
+                let mut block = std::mem::take(&mut s.block);
+                match writer {
+                    Some(w) => {
+                        design.build_block_raw(source, &at, true, &mut block, Some(&mut s.raw))?;
+                        encode_block(&block, &s.raw, ncols, &mut s.encoded);
+                        w.put(index, &block, &s.encoded);
+                    }
+                    None => design.build_block(source, &at, true, &mut block)?,
+                }
+                accumulate(acc, &block, x, layout, design.loss, source);
+                acc.scratch.block = block;
+                Ok(())
+            },
+            read,
+            starts,
+            snapshots,
+        )
+    }
+
+    /// A pass over the mapped block cache.
+    fn cached_pass<'c>(
+        &self,
+        cache: &'c BlockCache,
+        x: &[f64],
+        starts: Vec<ShardStart<PassSums>>,
+    ) -> Result<Vec<PassSums>> {
+        let (layout, design, source, plan) = (self.layout, self.design, self.source, self.plan);
+        let decoders = decoders(design);
+        let ranges = pass::shard_block_ranges(plan, source.block_rows() as u64);
+        let save = |states: Vec<ShardStart<PassSums>>| self.save_partial(x, states);
+        let snapshots = self.mid_pass.as_ref().map(|mid| Snapshots {
+            every: mid.every,
+            save: &save,
+        });
+        let read =
+            |shard: usize, skip: u64, each: &mut dyn FnMut(u64, BlockView<'c>) -> Result<()>| {
+                let range = &ranges[shard];
+                for i in range.start + skip as usize..range.end {
+                    let view = cache.block(i)?;
+                    each(view.rows as u64, view)?;
+                }
+                Ok(())
+            };
+        pass::run_units(
+            source,
+            plan,
+            || PassSums::empty(layout.dim()),
+            |acc: &mut PassSums, view: BlockView<'c>| {
+                accumulate_cached(acc, cache, &view, &decoders, x, layout, design.loss, source)
+            },
+            read,
+            starts,
+            snapshots,
+        )
+    }
+}
+
 impl Objective for GlmObjective<'_> {
     fn dim(&self) -> usize {
         self.layout.dim()
@@ -360,48 +597,17 @@ impl Objective for GlmObjective<'_> {
     fn eval(&mut self, x: &[f64], grad: &mut [f64]) -> Result<f64> {
         let layout = self.layout;
         let design = self.design;
-        let source = self.source;
-        let columns = design.training_columns();
         let starts = self.starts_for(x);
-        let save_partial = |states: Vec<ShardStart<PassSums>>| -> Result<()> {
-            let Some(mid) = &self.mid_pass else {
-                return Ok(());
-            };
-            let shards = states
-                .iter()
-                .map(|s| match s {
-                    ShardStart::Fresh => ShardProgress::NotStarted,
-                    ShardStart::Partial { blocks, acc } => ShardProgress::Partial {
-                        blocks: *blocks,
-                        sums: acc.to_vec(),
-                    },
-                    ShardStart::Done(acc) => ShardProgress::Done { sums: acc.to_vec() },
-                })
-                .collect();
-            (mid.save)(PartialPass {
-                point: x.to_vec(),
-                shards,
-            })
+        let shards = match self.cache {
+            None => self.parquet_pass(x, starts, None)?,
+            Some(slot) => {
+                let state = slot.take();
+                let (outcome, state) = self.pass_with_cache(slot, state, x, starts);
+                slot.put(state);
+                outcome?
+            }
         };
-        let snapshots = self.mid_pass.as_ref().map(|mid| Snapshots {
-            every: mid.every,
-            save: &save_partial,
-        });
-        let shards = pass::run_resumable(
-            source,
-            self.plan,
-            &columns,
-            || PassSums::empty(layout.dim()),
-            |acc, at| {
-                let mut block = std::mem::take(&mut acc.block);
-                design.build_block(source, &at, true, &mut block)?;
-                accumulate(acc, &block, x, layout, design.loss, source);
-                acc.block = block;
-                Ok(())
-            },
-            starts,
-            snapshots,
-        )?;
+        crate::memory::sample();
         self.passes += 1;
         let mut loss_sum = 0.0;
         let mut wrong = 0.0;
@@ -409,7 +615,7 @@ impl Objective for GlmObjective<'_> {
         let mut holdout_sum = 0.0;
         let mut holdout_weight = 0.0;
         grad.fill(0.0);
-        for shard in &shards {
+        for shard in shards.iter().map(|s| &s.t) {
             loss_sum += shard.loss;
             wrong += shard.wrong;
             holdout_sum += shard.holdout_loss;
@@ -459,35 +665,154 @@ impl Objective for GlmObjective<'_> {
     }
 }
 
-/// Adds one block's loss and gradient to the shard sums.
-fn accumulate(
-    acc: &mut PassSums,
-    block: &Block,
+/// Most rows of a tile, the unit of the fused kernel.
+pub const MAX_TILE_ROWS: usize = 512;
+/// Feature values of one tile: 16 Ki `f64` = 128 KiB, so that the tile's columns, read a
+/// second time for the gradient, are still in L2 (256 KiB–2 MiB on current cores) and
+/// its margins and residuals (`tile × 8` bytes per group) in L1.
+const TILE_VALUES: usize = 16 * 1024;
+
+/// Rows of a tile for `width` features: as many as keep the tile's features within
+/// [`TILE_VALUES`], a multiple of 8 between 16 and [`MAX_TILE_ROWS`]. It depends on the
+/// width only, so both ways of reading a block (Parquet or cache) cut the same tiles
+/// and give bitwise the same sums.
+pub fn tile_rows(width: usize) -> usize {
+    (TILE_VALUES / width.max(1)).clamp(16, MAX_TILE_ROWS) / 8 * 8
+}
+
+/// Rows of a block as the kernel sees them.
+struct Tile<'a> {
+    rows: usize,
+    /// Feature `j` at `cols[j * stride .. j * stride + rows]`, standardized.
+    cols: &'a [f64],
+    stride: usize,
+    y: &'a [f64],
+    /// Empty: every weight is 1.
+    w: &'a [f64],
+    /// Empty: every row trains.
+    held: &'a [bool],
+    file: usize,
+    first_row: u64,
+    /// The block's CSR part (none when it has none) and the block row of the tile's
+    /// first row in it.
+    sparse: Option<&'a SparseRows>,
+    sparse_first: usize,
+}
+
+impl Tile<'_> {
+    #[inline]
+    fn col(&self, j: usize) -> &[f64] {
+        &self.cols[j * self.stride..j * self.stride + self.rows]
+    }
+
+    #[inline]
+    fn weight(&self, i: usize) -> f64 {
+        if self.w.is_empty() {
+            1.0
+        } else {
+            self.w[i]
+        }
+    }
+
+    #[inline]
+    fn is_held_out(&self, i: usize) -> bool {
+        !self.held.is_empty() && self.held[i]
+    }
+}
+
+/// `Σ a_i b_i` with eight independent partial sums combined in a fixed order: the
+/// compiler turns the lanes into SIMD registers (no reassociation is needed, so the
+/// result is the same on every machine and run).
+#[inline]
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let n = a.len().min(b.len());
+    let (a, b) = (&a[..n], &b[..n]);
+    let mut lanes = [0.0f64; 8];
+    let ca = a.chunks_exact(8);
+    let cb = b.chunks_exact(8);
+    let tail: f64 = ca
+        .remainder()
+        .iter()
+        .zip(cb.remainder())
+        .map(|(x, y)| x * y)
+        .sum();
+    for (x, y) in ca.zip(cb) {
+        for k in 0..8 {
+            lanes[k] += x[k] * y[k];
+        }
+    }
+    ((lanes[0] + lanes[1]) + (lanes[2] + lanes[3]))
+        + ((lanes[4] + lanes[5]) + (lanes[6] + lanes[7]))
+        + tail
+}
+
+/// `Σ a_i` in the lanes of [`dot`].
+#[inline]
+fn lane_sum(a: &[f64]) -> f64 {
+    let mut lanes = [0.0f64; 8];
+    let c = a.chunks_exact(8);
+    let tail: f64 = c.remainder().iter().sum();
+    for x in c {
+        for k in 0..8 {
+            lanes[k] += x[k];
+        }
+    }
+    ((lanes[0] + lanes[1]) + (lanes[2] + lanes[3]))
+        + ((lanes[4] + lanes[5]) + (lanes[6] + lanes[7]))
+        + tail
+}
+
+/// The fused kernel: margins, loss and residuals, and the gradient of one tile, in one
+/// sweep over its features (the second read, for the gradient, hits the cache).
+#[allow(clippy::too_many_arguments)]
+fn fold_tile(
+    t: &mut Totals,
+    z: &mut Vec<f64>,
+    row: &mut Vec<f64>,
+    tile: &Tile<'_>,
     x: &[f64],
     layout: Layout,
     loss: Loss,
     source: &Source,
 ) {
-    let n = block.rows;
+    let n = tile.rows;
     if n == 0 {
         return;
     }
     let groups = layout.groups;
-    margins(block, x, layout, &mut acc.z);
+    z.clear();
+    z.resize(groups * n, 0.0);
+    for g in 0..groups {
+        let base = layout.intercept(g);
+        let zg = &mut z[g * n..(g + 1) * n];
+        zg.fill(x[base]);
+        for j in 0..layout.width {
+            let beta = x[base + 1 + j];
+            if beta != 0.0 {
+                for (zi, xi) in zg.iter_mut().zip(tile.col(j)) {
+                    *zi += beta * xi;
+                }
+            }
+        }
+    }
+    // Sparse part: add the hashed coefficients of every row's nonzeros.
+    if let Some(sparse) = tile.sparse {
+        sparse_kernel::add_margins(sparse, tile.sparse_first, n, x, layout, z);
+    }
     // Loss, and the residuals dℓ/dz (times the weight) in place of the margins.
     match loss {
-        Loss::Softmax => softmax_rows(acc, block, layout),
+        Loss::Softmax => softmax_rows(t, z, row, tile, layout),
         _ => {
-            let z = &mut acc.z[..n];
+            let z = &mut z[..n];
             let mut sum = 0.0;
             let mut wrong = 0.0;
             let mut held_sum = 0.0;
             let mut held_weight = 0.0;
             for i in 0..n {
                 let zi = z[i];
-                let y = block.y[i];
-                let w = block.weight(i);
-                let held = block.is_held_out(i);
+                let y = tile.y[i];
+                let w = tile.weight(i);
+                let held = tile.is_held_out(i);
                 let (l, d) = match loss {
                     Loss::Logistic => {
                         if !held && (zi > 0.0) != (y > 0.5) {
@@ -497,11 +822,11 @@ fn accumulate(
                     }
                     Loss::Squared => loss::squared(zi, y),
                     _ => {
-                        if !held && zi > MAX_EXP_MARGIN && acc.overflow.is_none() {
-                            acc.overflow = Some(format!(
+                        if !held && zi > MAX_EXP_MARGIN && t.overflow.is_none() {
+                            t.overflow = Some(format!(
                                 "row {} of {}",
-                                block.first_row + i as u64 + 1,
-                                source.files()[block.file].path.display()
+                                tile.first_row + i as u64 + 1,
+                                source.files()[tile.file].path.display()
                             ));
                         }
                         loss::poisson(zi, y)
@@ -517,27 +842,171 @@ fn accumulate(
                     z[i] = w * d;
                 }
             }
-            acc.loss += sum;
-            acc.wrong += wrong;
-            acc.holdout_loss += held_sum;
-            acc.holdout_weight += held_weight;
+            t.loss += sum;
+            t.wrong += wrong;
+            t.holdout_loss += held_sum;
+            t.holdout_weight += held_weight;
         }
     }
-    let p = layout.width;
     // Gradient: intercept sums the residuals, coefficient j is their dot with feature j.
     for g in 0..groups {
         let base = layout.intercept(g);
-        let r = &acc.z[g * n..(g + 1) * n];
-        acc.grad[base] += r.iter().sum::<f64>();
-        for j in 0..p {
-            let dot: f64 = r.iter().zip(block.column(j)).map(|(a, b)| a * b).sum();
-            acc.grad[base + 1 + j] += dot;
+        let r = &z[g * n..(g + 1) * n];
+        t.grad[base] += lane_sum(r);
+        for j in 0..layout.width {
+            t.grad[base + 1 + j] += dot(r, tile.col(j));
         }
     }
     // Sparse part: scatter the residuals into the hashed coordinates.
-    if !block.sparse.is_empty() {
-        sparse_kernel::add_gradient(&block.sparse, &acc.z, layout, &mut acc.grad);
+    if let Some(sparse) = tile.sparse {
+        sparse_kernel::add_gradient(sparse, tile.sparse_first, n, z, layout, &mut t.grad);
     }
+}
+
+/// Adds one block built from Parquet to the shard sums, tile by tile.
+fn accumulate(
+    acc: &mut PassSums,
+    block: &Block,
+    x: &[f64],
+    layout: Layout,
+    loss: Loss,
+    source: &Source,
+) {
+    let n = block.rows;
+    let step = tile_rows(layout.width);
+    let Scratch { z, row, .. } = &mut acc.scratch;
+    let mut r0 = 0;
+    while r0 < n {
+        let rows = step.min(n - r0);
+        let held: &[bool] = if block.holdout.is_empty() {
+            &[]
+        } else {
+            &block.holdout[r0..r0 + rows]
+        };
+        let tile = Tile {
+            rows,
+            cols: &block.x[r0..],
+            stride: n,
+            y: &block.y[r0..r0 + rows],
+            w: if block.w.is_empty() {
+                &[]
+            } else {
+                &block.w[r0..r0 + rows]
+            },
+            held,
+            file: block.file,
+            first_row: block.first_row + r0 as u64,
+            sparse: (!block.sparse.is_empty()).then_some(&block.sparse),
+            sparse_first: r0,
+        };
+        fold_tile(&mut acc.t, z, row, &tile, x, layout, loss, source);
+        r0 += rows;
+    }
+}
+
+/// How a feature is decoded from the cache's raw column into the standardized value
+/// that [`Design::build_block`] would have built.
+#[derive(Debug, Clone, Copy)]
+struct Decoder {
+    column: u32,
+    center: f64,
+    inv: f64,
+    impute: f64,
+    indicator: bool,
+}
+
+fn decoders(design: &Design) -> Vec<Decoder> {
+    let columns = design.feature_columns();
+    design
+        .features
+        .iter()
+        .map(|f| Decoder {
+            column: columns.iter().position(|c| c == &f.column).unwrap_or(0) as u32,
+            center: f.center,
+            inv: 1.0 / f.scale,
+            impute: f.impute,
+            indicator: f.indicator,
+        })
+        .collect()
+}
+
+/// Adds one cached block to the shard sums: every tile's features are decoded and
+/// standardized into the shard's tile buffer, then folded by the same kernel as a block
+/// built from Parquet.
+#[allow(clippy::too_many_arguments)]
+fn accumulate_cached(
+    acc: &mut PassSums,
+    cache: &BlockCache,
+    view: &BlockView<'_>,
+    decoders: &[Decoder],
+    x: &[f64],
+    layout: Layout,
+    loss: Loss,
+    source: &Source,
+) -> Result<()> {
+    let n = view.rows;
+    let PassSums { t, scratch: s } = acc;
+    let missing = |what: &str| cache.damaged(format!("lacks its {what} section"));
+    let labels = view
+        .section(Kind::Label, 0)
+        .ok_or_else(|| missing("label"))?;
+    s.y.resize(n, 0.0);
+    labels.decode_into(0, &mut s.y, |v| v);
+    match view.section(Kind::Weight, 0) {
+        Some(w) => {
+            s.w.resize(n, 0.0);
+            w.decode_into(0, &mut s.w, |v| v);
+        }
+        None => s.w.clear(),
+    }
+    match view.section(Kind::Holdout, 0) {
+        Some(h) => {
+            s.held.clear();
+            s.held.extend((0..n).map(|i| h.get(i) != 0.0));
+        }
+        None => s.held.clear(),
+    }
+    let step = tile_rows(layout.width);
+    s.tile.resize(step * decoders.len().max(1), 0.0);
+    let mut r0 = 0;
+    while r0 < n {
+        let rows = step.min(n - r0);
+        for (j, d) in decoders.iter().enumerate() {
+            let values = view
+                .section(Kind::Dense, d.column)
+                .ok_or_else(|| missing("column"))?;
+            let out = &mut s.tile[j * step..j * step + rows];
+            let (c, inv, impute) = (d.center, d.inv, d.impute);
+            if d.indicator {
+                values.decode_into(r0, out, |v| (if v.is_nan() { 1.0 } else { 0.0 } - c) * inv);
+            } else {
+                values.decode_into(r0, out, |v| (if v.is_nan() { impute } else { v } - c) * inv);
+            }
+        }
+        let tile = Tile {
+            rows,
+            cols: &s.tile,
+            stride: step,
+            y: &s.y[r0..r0 + rows],
+            w: if s.w.is_empty() {
+                &[]
+            } else {
+                &s.w[r0..r0 + rows]
+            },
+            held: if s.held.is_empty() {
+                &[]
+            } else {
+                &s.held[r0..r0 + rows]
+            },
+            file: view.file,
+            first_row: view.first_row + r0 as u64,
+            sparse: None,
+            sparse_first: 0,
+        };
+        fold_tile(t, &mut s.z, &mut s.row, &tile, x, layout, loss, source);
+        r0 += rows;
+    }
+    Ok(())
 }
 
 /// Margins of every group for every row of `block`, group-major: `z[g * rows + i]`.
@@ -560,15 +1029,23 @@ pub fn margins(block: &Block, x: &[f64], layout: Layout, z: &mut Vec<f64>) {
     }
     // Sparse part: add the hashed coefficients of every row's nonzeros.
     if !block.sparse.is_empty() {
-        sparse_kernel::add_margins(&block.sparse, x, layout, z);
+        sparse_kernel::add_margins(&block.sparse, 0, n, x, layout, z);
     }
 }
 
-/// Softmax loss per row; replaces the margins with weighted residuals `w (p_k − [y = k])`.
-fn softmax_rows(acc: &mut PassSums, block: &Block, layout: Layout) {
-    let n = block.rows;
+/// Softmax loss per row of a tile; replaces the margins `z` with weighted residuals
+/// `w (p_k − [y = k])`.
+fn softmax_rows(
+    t: &mut Totals,
+    z: &mut [f64],
+    margins: &mut Vec<f64>,
+    tile: &Tile<'_>,
+    layout: Layout,
+) {
+    let n = tile.rows;
     let k = layout.classes;
-    let mut margins = vec![0.0; k];
+    margins.clear();
+    margins.resize(k, 0.0);
     let mut sum = 0.0;
     let mut wrong = 0.0;
     let mut held_sum = 0.0;
@@ -579,21 +1056,21 @@ fn softmax_rows(acc: &mut PassSums, block: &Block, layout: Layout) {
                 if c == 0 {
                     0.0
                 } else {
-                    acc.z[(c - 1) * n + i]
+                    z[(c - 1) * n + i]
                 }
             } else {
-                acc.z[c * n + i]
+                z[c * n + i]
             };
         }
-        let y = block.y[i] as usize;
-        let w = block.weight(i);
-        let lse = loss::log_sum_exp(&margins);
-        if block.is_held_out(i) {
+        let y = tile.y[i] as usize;
+        let w = tile.weight(i);
+        let lse = loss::log_sum_exp(margins);
+        if tile.is_held_out(i) {
             // Scored, not trained on: no residuals, so no gradient.
             held_sum += w * (lse - margins[y]);
             held_weight += w;
             for g in 0..layout.groups {
-                acc.z[g * n + i] = 0.0;
+                z[g * n + i] = 0.0;
             }
             continue;
         }
@@ -610,11 +1087,11 @@ fn softmax_rows(acc: &mut PassSums, block: &Block, layout: Layout) {
         for g in 0..layout.groups {
             let c = layout.class_of_group(g);
             let p = (margins[c] - lse).exp();
-            acc.z[g * n + i] = w * (p - if c == y { 1.0 } else { 0.0 });
+            z[g * n + i] = w * (p - if c == y { 1.0 } else { 0.0 });
         }
     }
-    acc.loss += sum;
-    acc.wrong += wrong;
-    acc.holdout_loss += held_sum;
-    acc.holdout_weight += held_weight;
+    t.loss += sum;
+    t.wrong += wrong;
+    t.holdout_loss += held_sum;
+    t.holdout_weight += held_weight;
 }

@@ -11,14 +11,20 @@ use crate::features::sparse::SparseRows;
 use crate::objective::Layout;
 
 /// Adds `Σ_k x[sparse(g) + index_k] · value_k` to the margin `z[g * n + i]` of every
-/// row `i` and group `g`.
-pub fn add_margins(rows: &SparseRows, x: &[f64], layout: Layout, z: &mut [f64]) {
-    let n = rows.rows();
+/// row `first + i` (`i < n`) and group `g`.
+pub fn add_margins(
+    rows: &SparseRows,
+    first: usize,
+    n: usize,
+    x: &[f64],
+    layout: Layout,
+    z: &mut [f64],
+) {
     for g in 0..layout.groups {
         let xs = &x[layout.sparse_start(g)..layout.sparse_start(g) + layout.sparse];
         let zg = &mut z[g * n..(g + 1) * n];
         for (i, zi) in zg.iter_mut().enumerate() {
-            let (index, value) = rows.row(i);
+            let (index, value) = rows.row(first + i);
             let mut sum = 0.0;
             for (k, v) in index.iter().zip(value) {
                 sum += xs[*k as usize] * v;
@@ -29,9 +35,16 @@ pub fn add_margins(rows: &SparseRows, x: &[f64], layout: Layout, z: &mut [f64]) 
 }
 
 /// Adds `r[g * n + i] · value_k` to `grad[sparse(g) + index_k]` for every entry of every
-/// row (the residuals `r` are weighted; held-out rows carry zero residuals).
-pub fn add_gradient(rows: &SparseRows, r: &[f64], layout: Layout, grad: &mut [f64]) {
-    let n = rows.rows();
+/// row `first + i` (`i < n`; the residuals `r` are weighted; held-out rows carry zero
+/// residuals).
+pub fn add_gradient(
+    rows: &SparseRows,
+    first: usize,
+    n: usize,
+    r: &[f64],
+    layout: Layout,
+    grad: &mut [f64],
+) {
     for g in 0..layout.groups {
         let start = layout.sparse_start(g);
         let gs = &mut grad[start..start + layout.sparse];
@@ -39,7 +52,7 @@ pub fn add_gradient(rows: &SparseRows, r: &[f64], layout: Layout, grad: &mut [f6
             if *ri == 0.0 {
                 continue;
             }
-            let (index, value) = rows.row(i);
+            let (index, value) = rows.row(first + i);
             for (k, v) in index.iter().zip(value) {
                 gs[*k as usize] += ri * v;
             }
@@ -68,14 +81,14 @@ mod tests {
         let dense = [[1.0, 0.0, 0.0, -1.0], [0.0, 0.0, 3.0, 0.0], [0.0; 4]];
         let x = [0.5, 0.1, -0.2, 0.3, 0.7];
         let mut z = vec![x[0]; 3];
-        add_margins(&rows, &x, layout, &mut z);
+        add_margins(&rows, 0, rows.rows(), &x, layout, &mut z);
         for i in 0..3 {
             let want: f64 = x[0] + (0..4).map(|k| dense[i][k] * x[1 + k]).sum::<f64>();
             assert!((z[i] - want).abs() < 1e-15);
         }
         let r = [0.25, -0.5, 9.0];
         let mut g = vec![0.0; 5];
-        add_gradient(&rows, &r, layout, &mut g);
+        add_gradient(&rows, 0, rows.rows(), &r, layout, &mut g);
         for k in 0..4 {
             let want: f64 = (0..3).map(|i| dense[i][k] * r[i]).sum();
             assert!((g[1 + k] - want).abs() < 1e-15);

@@ -1,0 +1,1013 @@
+//! The block cache: blocks encoded once into a binary file and read back through
+//! `memmap2` on every later pass, so that a pass costs a sweep over memory (or the disk)
+//! instead of a Parquet decode.
+//!
+//! # File layout (`outcore-blocks/1`, little-endian)
+//!
+//! ```text
+//! 0    header (64 bytes): magic "OUTCORE-BLOCKS\0\0", version u32, 0 u32,
+//!      key offset u64, key length u64, index offset u64, block count u64,
+//!      CRC-32C of key and index u32, 0 u32
+//! 64   blocks, each starting at a multiple of 64 (see below), in any order
+//! ...  key: JSON of [`CacheKey`] (what the blocks were built from)
+//! ...  index: one 40-byte entry per block of the grid, in data order: offset u64,
+//!      length u64, rows u32, CRC-32C of the block's bytes u32, file u32, 0 u32,
+//!      first row in the file u64
+//! ```
+//!
+//! A block is a table of typed sections followed by their data, each section starting
+//! at a multiple of 64 bytes from the block's start (so `f64` data are aligned in the
+//! map):
+//!
+//! ```text
+//! sections u32, rows u32, then per section 24 bytes:
+//!     kind u16, encoding u16, column u32, offset u64 (from the block's start), length u64
+//! ```
+//!
+//! Section kinds ([`Kind`]): labels, weights, holdout flags, one dense column per
+//! source feature column (`column` = its index in [`CacheKey::columns`]). A sparse
+//! (CSR) part is meant to be three more kinds (row offsets, column indices, values);
+//! a reader that meets a kind it does not know treats the file as of another version.
+//! Encodings ([`Encoding`]): `f64`, `f32` (chosen per block and column when every value
+//! is exactly an `f32`: float32 columns, small integers, booleans, 0/1 labels), and
+//! `u8` (flags). Dense values are the feature values as read (before imputation and
+//! scaling; NaN where null), so a block decoded from the cache and standardized is
+//! bitwise the block built from Parquet: `float64` data stay `f64` (DESIGN §3) unless
+//! `--precision f32` rounded them knowingly.
+//!
+//! **Invariant:** a cache is only used when its key equals the key of the fit (data
+//! fingerprint, block grid, columns, target reading, holdout, precision); anything
+//! else, or a damaged header, is rebuilt with a warning. Every block's checksum is
+//! checked the first time this process reads it.
+//!
+//! **Invariant:** the file is written as `NAME.tmp-PID` and renamed into place only when
+//! every block of the grid is in it; the file mapped by a reader is never written again
+//! (a rebuild writes a new file and renames it over the old name). It is not fsynced
+//! (a copy torn by a crash fails its checks and is rebuilt).
+
+use std::fs::{self, File, OpenOptions};
+use std::io::{Seek, SeekFrom, Write};
+use std::os::unix::fs::FileExt;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Mutex;
+
+use memmap2::Mmap;
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+use crate::features::{Block, Design};
+use crate::objective::Loss;
+use crate::source::Source;
+use crate::{Error, Result};
+
+/// Format name in the key.
+pub const FORMAT: &str = "outcore-blocks/1";
+/// Binary version in the header.
+pub const VERSION: u32 = 1;
+const MAGIC: &[u8; 16] = b"OUTCORE-BLOCKS\0\0";
+const HEADER: u64 = 64;
+const ALIGN: u64 = 64;
+const ENTRY: usize = 40;
+const SECTION: usize = 24;
+/// File name extension of cache files.
+pub const EXTENSION: &str = "ocache";
+
+/// Kinds of sections in a block.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[repr(u16)]
+pub enum Kind {
+    /// Labels (0/1, the value, the count or the class index).
+    Label = 1,
+    /// Frequency weights (absent: every weight is 1).
+    Weight = 2,
+    /// Holdout flags, 1 for a held-out row (absent: every row trains).
+    Holdout = 3,
+    /// One dense source column, values as read (NaN where null).
+    Dense = 4,
+}
+
+/// How a section's values are stored.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[repr(u16)]
+pub enum Encoding {
+    /// Little-endian `f64`.
+    F64 = 1,
+    /// Little-endian `f32`, exact for every value of the section.
+    F32 = 2,
+    /// One byte per row.
+    U8 = 3,
+}
+
+impl Encoding {
+    fn from_u16(v: u16) -> Option<Encoding> {
+        match v {
+            1 => Some(Encoding::F64),
+            2 => Some(Encoding::F32),
+            3 => Some(Encoding::U8),
+            _ => None,
+        }
+    }
+}
+
+/// What a cache was built from; a cache is used only for a fit with the same key.
+/// The penalty, tolerance and standardization are not in it: a cache serves every fit
+/// on the same data and feature settings.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CacheKey {
+    /// [`FORMAT`].
+    pub format: String,
+    /// The data files, in order.
+    pub data: Vec<String>,
+    /// The data fingerprint ([`Source::fingerprint`]).
+    pub fingerprint: String,
+    /// Rows per block of the grid.
+    pub block_rows: usize,
+    /// Blocks of the grid.
+    pub blocks: u64,
+    /// Rows of the data.
+    pub rows: u64,
+    /// Target column.
+    pub target: String,
+    /// How the target is read.
+    pub loss: Loss,
+    /// Softmax classes (their order gives the label values).
+    pub classes: Vec<String>,
+    /// Weight column.
+    pub weight: Option<String>,
+    /// Dense source columns, in section order.
+    pub columns: Vec<String>,
+    /// Rows with a null target are left out.
+    pub skip_missing_target: bool,
+    /// The holdout split (fraction and key), when rows are held out.
+    pub holdout: Option<serde_json::Value>,
+    /// `stored` or `f32` (`--precision f32`).
+    pub precision: String,
+}
+
+impl CacheKey {
+    /// The key of a fit's passes over `source` with `design`.
+    pub fn new(source: &Source, design: &Design, holdout: Option<serde_json::Value>) -> CacheKey {
+        let block_rows = source.block_rows() as u64;
+        let blocks = source
+            .files()
+            .iter()
+            .flat_map(|f| f.row_group_rows.iter())
+            .map(|r| r.div_ceil(block_rows))
+            .sum();
+        CacheKey {
+            format: FORMAT.to_string(),
+            data: source
+                .files()
+                .iter()
+                .map(|f| f.path.to_string_lossy().into_owned())
+                .collect(),
+            fingerprint: source.fingerprint(),
+            block_rows: source.block_rows(),
+            blocks,
+            rows: source.rows(),
+            target: design.target.clone(),
+            loss: design.loss,
+            classes: design.classes.clone(),
+            weight: design.weight.clone(),
+            columns: design.feature_columns().to_vec(),
+            skip_missing_target: design.skip_missing_target,
+            holdout,
+            precision: if design.rounds_to_f32() {
+                "f32"
+            } else {
+                "stored"
+            }
+            .to_string(),
+        }
+    }
+
+    /// The cache file for this key in `dir`. The name hashes everything but what the
+    /// data's content decides (fingerprint, row and block counts), so changed data at
+    /// the same paths meet their old (stale) cache and replace it instead of leaving it
+    /// behind.
+    pub fn path_in(&self, dir: &Path) -> PathBuf {
+        let mut named = self.clone();
+        named.fingerprint.clear();
+        named.rows = 0;
+        named.blocks = 0;
+        let text = serde_json::to_string(&named).unwrap_or_default();
+        let digest = Sha256::digest(text.as_bytes());
+        let hex: String = digest[..8].iter().map(|b| format!("{b:02x}")).collect();
+        dir.join(format!("blocks-{hex}.{EXTENSION}"))
+    }
+
+    /// Names the first field that differs from `other`, for the warning.
+    fn difference(&self, other: &CacheKey) -> &'static str {
+        if self.format != other.format {
+            "another format"
+        } else if self.fingerprint != other.fingerprint || self.data != other.data {
+            "other data (the files changed since it was written)"
+        } else if self.block_rows != other.block_rows || self.blocks != other.blocks {
+            "another block grid"
+        } else if self.columns != other.columns || self.weight != other.weight {
+            "other columns"
+        } else {
+            "other target, holdout or precision settings"
+        }
+    }
+}
+
+/// One block's entry in the index.
+#[derive(Debug, Clone, Copy, Default)]
+struct Entry {
+    offset: u64,
+    len: u64,
+    rows: u32,
+    crc: u32,
+    file: u32,
+    first_row: u64,
+}
+
+impl Entry {
+    fn encode(&self, out: &mut Vec<u8>) {
+        out.extend_from_slice(&self.offset.to_le_bytes());
+        out.extend_from_slice(&self.len.to_le_bytes());
+        out.extend_from_slice(&self.rows.to_le_bytes());
+        out.extend_from_slice(&self.crc.to_le_bytes());
+        out.extend_from_slice(&self.file.to_le_bytes());
+        out.extend_from_slice(&0u32.to_le_bytes());
+        out.extend_from_slice(&self.first_row.to_le_bytes());
+    }
+
+    fn decode(b: &[u8]) -> Entry {
+        Entry {
+            offset: u64_at(b, 0),
+            len: u64_at(b, 8),
+            rows: u32_at(b, 16),
+            crc: u32_at(b, 20),
+            file: u32_at(b, 24),
+            first_row: u64_at(b, 32),
+        }
+    }
+}
+
+fn u64_at(b: &[u8], at: usize) -> u64 {
+    let mut a = [0u8; 8];
+    a.copy_from_slice(&b[at..at + 8]);
+    u64::from_le_bytes(a)
+}
+
+fn u32_at(b: &[u8], at: usize) -> u32 {
+    let mut a = [0u8; 4];
+    a.copy_from_slice(&b[at..at + 4]);
+    u32::from_le_bytes(a)
+}
+
+fn u16_at(b: &[u8], at: usize) -> u16 {
+    u16::from_le_bytes([b[at], b[at + 1]])
+}
+
+fn pad_to(v: u64, align: u64) -> u64 {
+    v.div_ceil(align) * align
+}
+
+/// Encodes a block into `out` (cleared first): labels, weights, holdout flags and the
+/// dense columns of `raw` (as filled by [`Design::build_block_raw`], `columns` runs of
+/// `block.rows` values).
+pub fn encode_block(block: &Block, raw: &[f64], columns: usize, out: &mut Vec<u8>) {
+    let n = block.rows;
+    out.clear();
+    let mut sections: Vec<(Kind, Encoding, u32)> = Vec::with_capacity(columns + 3);
+    sections.push((Kind::Label, narrowest(&block.y), 0));
+    if !block.w.is_empty() {
+        sections.push((Kind::Weight, narrowest(&block.w), 0));
+    }
+    if !block.holdout.is_empty() {
+        sections.push((Kind::Holdout, Encoding::U8, 0));
+    }
+    for c in 0..columns {
+        sections.push((Kind::Dense, narrowest(&raw[c * n..(c + 1) * n]), c as u32));
+    }
+    let table = pad_to((8 + SECTION * sections.len()) as u64, ALIGN);
+    out.extend_from_slice(&(sections.len() as u32).to_le_bytes());
+    out.extend_from_slice(&(n as u32).to_le_bytes());
+    let mut at = table;
+    for (kind, enc, col) in &sections {
+        let len = (n * match enc {
+            Encoding::F64 => 8,
+            Encoding::F32 => 4,
+            Encoding::U8 => 1,
+        }) as u64;
+        out.extend_from_slice(&(*kind as u16).to_le_bytes());
+        out.extend_from_slice(&(*enc as u16).to_le_bytes());
+        out.extend_from_slice(&col.to_le_bytes());
+        out.extend_from_slice(&at.to_le_bytes());
+        out.extend_from_slice(&len.to_le_bytes());
+        at = pad_to(at + len, ALIGN);
+    }
+    for (kind, enc, col) in &sections {
+        out.resize(pad_to(out.len() as u64, ALIGN) as usize, 0);
+        let values: &[f64] = match kind {
+            Kind::Label => &block.y,
+            Kind::Weight => &block.w,
+            Kind::Holdout => {
+                out.extend(block.holdout.iter().map(|h| *h as u8));
+                continue;
+            }
+            Kind::Dense => &raw[*col as usize * n..(*col as usize + 1) * n],
+        };
+        match enc {
+            Encoding::F64 => values
+                .iter()
+                .for_each(|v| out.extend_from_slice(&v.to_le_bytes())),
+            Encoding::F32 => values
+                .iter()
+                .for_each(|v| out.extend_from_slice(&(*v as f32).to_le_bytes())),
+            Encoding::U8 => {}
+        }
+    }
+}
+
+/// `f32` when every value is exactly an `f32` (NaN, a null, included), else `f64`.
+fn narrowest(values: &[f64]) -> Encoding {
+    let exact = values
+        .iter()
+        .all(|v| v.is_nan() || ((*v as f32) as f64).to_bits() == v.to_bits());
+    if exact {
+        Encoding::F32
+    } else {
+        Encoding::F64
+    }
+}
+
+/// A cache file being written during a pass: blocks arrive from several threads in any
+/// order and are appended under a lock; the index keeps their places.
+pub struct CacheWriter {
+    path: PathBuf,
+    tmp: PathBuf,
+    key: CacheKey,
+    file: Mutex<(File, u64)>,
+    entries: Mutex<Vec<Option<Entry>>>,
+    failed: Mutex<Option<String>>,
+}
+
+impl CacheWriter {
+    /// Starts the cache for `key` in `dir` (created if missing).
+    pub fn create(dir: &Path, key: &CacheKey) -> Result<CacheWriter> {
+        fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+        let path = key.path_in(dir);
+        let mut name = path.file_name().unwrap_or_default().to_os_string();
+        name.push(format!(".tmp-{}", std::process::id()));
+        let tmp = path.with_file_name(name);
+        let mut file = OpenOptions::new()
+            .read(true)
+            .write(true)
+            .create(true)
+            .truncate(true)
+            .open(&tmp)
+            .map_err(|e| Error::io(&tmp, e))?;
+        file.write_all(&[0u8; HEADER as usize])
+            .map_err(|e| Error::io(&tmp, e))?;
+        Ok(CacheWriter {
+            path,
+            tmp,
+            key: key.clone(),
+            file: Mutex::new((file, HEADER)),
+            entries: Mutex::new(vec![None; key.blocks as usize]),
+            failed: Mutex::new(None),
+        })
+    }
+
+    /// The file the cache will have once finished.
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// Adds block `index` of the grid, encoded in `bytes` (by [`encode_block`]). A write
+    /// failure (a full disk) is remembered, not returned: the pass goes on without the
+    /// cache and [`CacheWriter::finish`] reports it.
+    pub fn put(&self, index: usize, block: &Block, bytes: &[u8]) {
+        if self.failed.lock().map(|f| f.is_some()).unwrap_or(true) {
+            return;
+        }
+        let crc = crc32c::crc32c(bytes);
+        let written = (|| -> std::io::Result<u64> {
+            let mut guard = self
+                .file
+                .lock()
+                .map_err(|_| std::io::Error::other("a writer thread panicked"))?;
+            let (file, pos) = &mut *guard;
+            let at = *pos;
+            file.write_all(bytes)?;
+            let end = pad_to(at + bytes.len() as u64, ALIGN);
+            let pad = (end - at - bytes.len() as u64) as usize;
+            file.write_all(&[0u8; ALIGN as usize][..pad])?;
+            *pos = end;
+            Ok(at)
+        })();
+        match written {
+            Ok(offset) => {
+                if let Ok(mut entries) = self.entries.lock() {
+                    if let Some(slot) = entries.get_mut(index) {
+                        *slot = Some(Entry {
+                            offset,
+                            len: bytes.len() as u64,
+                            rows: block.rows as u32,
+                            crc,
+                            file: block.file as u32,
+                            first_row: block.first_row,
+                        });
+                    }
+                }
+            }
+            Err(e) => {
+                if let Ok(mut f) = self.failed.lock() {
+                    f.get_or_insert(format!("cannot write {}: {e}", self.tmp.display()));
+                }
+            }
+        }
+    }
+
+    /// Writes key and index, then the header, syncs and renames the file into place.
+    /// Returns the cache's size in bytes. Fails (removing the temporary file) when a
+    /// block is missing (a pass that skipped blocks) or a write failed.
+    pub fn finish(self) -> Result<u64> {
+        let outcome = self.finish_inner();
+        if outcome.is_err() {
+            let _ = fs::remove_file(&self.tmp);
+        }
+        outcome
+    }
+
+    fn finish_inner(&self) -> Result<u64> {
+        if let Some(e) = self.failed.lock().ok().and_then(|f| f.clone()) {
+            return Err(Error::io(&self.tmp, std::io::Error::other(e)));
+        }
+        let entries = self
+            .entries
+            .lock()
+            .map_err(|_| Error::internal("a cache writer thread panicked"))?;
+        let mut index = Vec::with_capacity(entries.len() * ENTRY);
+        for e in entries.iter() {
+            match e {
+                Some(e) => e.encode(&mut index),
+                None => return Err(Error::internal("the pass did not read every block")),
+            }
+        }
+        let key = serde_json::to_vec(&self.key)
+            .map_err(|e| Error::internal(format!("cache key: {e}")))?;
+        let mut guard = self
+            .file
+            .lock()
+            .map_err(|_| Error::internal("a cache writer thread panicked"))?;
+        let (file, pos) = &mut *guard;
+        let io = |e| Error::io(&self.tmp, e);
+        let key_offset = *pos;
+        file.seek(SeekFrom::Start(key_offset)).map_err(io)?;
+        file.write_all(&key).map_err(io)?;
+        let index_offset = key_offset + key.len() as u64;
+        file.write_all(&index).map_err(io)?;
+        let mut crc = crc32c::crc32c(&key);
+        crc = crc32c::crc32c_append(crc, &index);
+        let mut header = Vec::with_capacity(HEADER as usize);
+        header.extend_from_slice(MAGIC);
+        header.extend_from_slice(&VERSION.to_le_bytes());
+        header.extend_from_slice(&0u32.to_le_bytes());
+        header.extend_from_slice(&key_offset.to_le_bytes());
+        header.extend_from_slice(&(key.len() as u64).to_le_bytes());
+        header.extend_from_slice(&index_offset.to_le_bytes());
+        header.extend_from_slice(&(entries.len() as u64).to_le_bytes());
+        header.extend_from_slice(&crc.to_le_bytes());
+        header.resize(HEADER as usize, 0);
+        file.write_all_at(&header, 0).map_err(io)?;
+        // Not synced: a cache is a copy, and one torn by a crash fails its checks and is
+        // rebuilt. Syncing a file the size of the data would cost the first pass several
+        // seconds per GB; the rename still makes the file appear whole or not at all to
+        // other processes.
+        let size = index_offset + index.len() as u64;
+        fs::rename(&self.tmp, &self.path).map_err(|e| Error::io(&self.path, e))?;
+        Ok(size)
+    }
+
+    /// Gives up the cache (a failed or interrupted pass): removes the temporary file.
+    pub fn abandon(self) {
+        let _ = fs::remove_file(&self.tmp);
+    }
+}
+
+/// What opening a cache found.
+pub enum Opened {
+    /// A cache for this key, ready to read.
+    Ready(BlockCache),
+    /// No cache file for this key.
+    Missing,
+    /// A file that cannot be used, with the reason (for the warning).
+    Unusable(String),
+}
+
+/// A cache file mapped for reading.
+pub struct BlockCache {
+    path: PathBuf,
+    map: Mmap,
+    entries: Vec<Entry>,
+    checked: Vec<AtomicBool>,
+    corrupt: Mutex<Option<String>>,
+}
+
+impl std::fmt::Debug for BlockCache {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("BlockCache")
+            .field("path", &self.path)
+            .field("bytes", &self.map.len())
+            .finish()
+    }
+}
+
+impl BlockCache {
+    /// Opens the cache of `key` in `dir`, checking header, key and index (block
+    /// checksums are checked on first use, by [`BlockCache::block`]).
+    pub fn open(dir: &Path, key: &CacheKey) -> Opened {
+        let path = key.path_in(dir);
+        let file = match File::open(&path) {
+            Ok(f) => f,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Opened::Missing,
+            Err(e) => return Opened::Unusable(format!("it cannot be opened ({e})")),
+        };
+        // Safety: the file is ours and never written after it was renamed into place
+        // (a rebuild renames a new file over the name); another program truncating it
+        // while it is mapped would be caught by the block checksums or end the process
+        // with SIGBUS, as for any mapped file.
+        let map = match unsafe { Mmap::map(&file) } {
+            Ok(m) => m,
+            Err(e) => return Opened::Unusable(format!("it cannot be mapped ({e})")),
+        };
+        match Self::check(&map, key) {
+            Ok(entries) => {
+                let checked = entries.iter().map(|_| AtomicBool::new(false)).collect();
+                Opened::Ready(BlockCache {
+                    path,
+                    map,
+                    entries,
+                    checked,
+                    corrupt: Mutex::new(None),
+                })
+            }
+            Err(reason) => Opened::Unusable(reason),
+        }
+    }
+
+    fn check(map: &[u8], key: &CacheKey) -> std::result::Result<Vec<Entry>, String> {
+        let len = map.len() as u64;
+        if len < HEADER || &map[..16] != MAGIC {
+            return Err("it is not a block cache (or its header is damaged)".to_string());
+        }
+        let version = u32_at(map, 16);
+        if version != VERSION {
+            return Err(format!("it is of version {version}, not {VERSION}"));
+        }
+        let key_offset = u64_at(map, 24);
+        let key_len = u64_at(map, 32);
+        let index_offset = u64_at(map, 40);
+        let blocks = u64_at(map, 48);
+        let crc = u32_at(map, 56);
+        let index_len = blocks.checked_mul(ENTRY as u64);
+        let fits = key_offset
+            .checked_add(key_len)
+            .is_some_and(|e| e <= len && e == index_offset)
+            && index_len
+                .and_then(|l| index_offset.checked_add(l))
+                .is_some_and(|e| e == len);
+        if !fits {
+            return Err("it is truncated or its header is damaged".to_string());
+        }
+        let key_bytes = &map[key_offset as usize..index_offset as usize];
+        let index = &map[index_offset as usize..];
+        if crc32c::crc32c_append(crc32c::crc32c(key_bytes), index) != crc {
+            return Err("its index fails its checksum".to_string());
+        }
+        let stored: CacheKey =
+            serde_json::from_slice(key_bytes).map_err(|_| "its key cannot be read".to_string())?;
+        if &stored != key {
+            return Err(format!("it was built for {}", stored.difference(key)));
+        }
+        let entries: Vec<Entry> = index.chunks_exact(ENTRY).map(Entry::decode).collect();
+        if entries.len() as u64 != key.blocks
+            || entries.iter().any(|e| {
+                e.offset < HEADER
+                    || e.offset % ALIGN != 0
+                    || e.offset
+                        .checked_add(e.len)
+                        .is_none_or(|end| end > key_offset)
+            })
+        {
+            return Err("its index does not match the block grid".to_string());
+        }
+        Ok(entries)
+    }
+
+    /// The file.
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// Size of the file in bytes.
+    pub fn bytes(&self) -> u64 {
+        self.map.len() as u64
+    }
+
+    /// Why a block failed its checksum or could not be read, if one did.
+    pub fn corruption(&self) -> Option<String> {
+        self.corrupt.lock().ok().and_then(|c| c.clone())
+    }
+
+    /// Marks the cache damaged (it is rebuilt) and returns the error that says why.
+    pub fn damaged(&self, why: String) -> Error {
+        if let Ok(mut c) = self.corrupt.lock() {
+            c.get_or_insert(why.clone());
+        }
+        Error::format(format!("the block cache {} {why}", self.path.display()))
+    }
+
+    /// Block `index` of the grid; its checksum is verified the first time.
+    pub fn block(&self, index: usize) -> Result<BlockView<'_>> {
+        let fail = |why: String| self.damaged(why);
+        let e = self
+            .entries
+            .get(index)
+            .ok_or_else(|| fail(format!("has no block {index}")))?;
+        let bytes = &self.map[e.offset as usize..(e.offset + e.len) as usize];
+        if !self.checked[index].load(Ordering::Relaxed) {
+            if crc32c::crc32c(bytes) != e.crc {
+                return Err(fail(format!("block {index} fails its checksum")));
+            }
+            self.checked[index].store(true, Ordering::Relaxed);
+        }
+        let view = BlockView {
+            bytes,
+            rows: e.rows as usize,
+            file: e.file as usize,
+            first_row: e.first_row,
+        };
+        view.validate()
+            .map_err(|why| fail(format!("block {index} {why}")))?;
+        Ok(view)
+    }
+}
+
+/// One block of the cache, read in place.
+#[derive(Debug, Clone, Copy)]
+pub struct BlockView<'a> {
+    bytes: &'a [u8],
+    /// Rows.
+    pub rows: usize,
+    /// File of the block.
+    pub file: usize,
+    /// Row number within the file of its first row.
+    pub first_row: u64,
+}
+
+/// A section's values in place.
+#[derive(Debug, Clone, Copy)]
+pub enum Values<'a> {
+    /// `f64` values (little-endian bytes).
+    F64(&'a [u8]),
+    /// `f32` values (little-endian bytes).
+    F32(&'a [u8]),
+    /// Bytes.
+    U8(&'a [u8]),
+}
+
+impl Values<'_> {
+    /// Value `i` as `f64` (a byte as 0 or 1 and so on).
+    #[inline]
+    pub fn get(&self, i: usize) -> f64 {
+        match self {
+            Values::F64(b) => f64::from_le_bytes(b[i * 8..i * 8 + 8].try_into().unwrap_or([0; 8])),
+            Values::F32(b) => {
+                f32::from_le_bytes(b[i * 4..i * 4 + 4].try_into().unwrap_or([0; 4])) as f64
+            }
+            Values::U8(b) => b[i] as f64,
+        }
+    }
+
+    /// Values `start..start + out.len()` into `out` as `f64`, then `op` applied.
+    #[inline]
+    pub fn decode_into(&self, start: usize, out: &mut [f64], op: impl Fn(f64) -> f64) {
+        match self {
+            Values::F64(b) => {
+                let b = &b[start * 8..(start + out.len()) * 8];
+                for (o, c) in out.iter_mut().zip(b.chunks_exact(8)) {
+                    let mut a = [0u8; 8];
+                    a.copy_from_slice(c);
+                    *o = op(f64::from_le_bytes(a));
+                }
+            }
+            Values::F32(b) => {
+                let b = &b[start * 4..(start + out.len()) * 4];
+                for (o, c) in out.iter_mut().zip(b.chunks_exact(4)) {
+                    let mut a = [0u8; 4];
+                    a.copy_from_slice(c);
+                    *o = op(f32::from_le_bytes(a) as f64);
+                }
+            }
+            Values::U8(b) => {
+                let b = &b[start..start + out.len()];
+                for (o, v) in out.iter_mut().zip(b) {
+                    *o = op(*v as f64);
+                }
+            }
+        }
+    }
+}
+
+impl<'a> BlockView<'a> {
+    fn sections(&self) -> usize {
+        u32_at(self.bytes, 0) as usize
+    }
+
+    fn validate(&self) -> std::result::Result<(), String> {
+        if self.bytes.len() < 8 || u32_at(self.bytes, 4) as usize != self.rows {
+            return Err("is damaged (its row count differs from the index)".to_string());
+        }
+        let count = self.sections();
+        if 8 + count * SECTION > self.bytes.len() {
+            return Err("is damaged (its section table is cut off)".to_string());
+        }
+        for s in 0..count {
+            let at = 8 + s * SECTION;
+            let kind = u16_at(self.bytes, at);
+            let enc = Encoding::from_u16(u16_at(self.bytes, at + 2));
+            let offset = u64_at(self.bytes, at + 8);
+            let len = u64_at(self.bytes, at + 16);
+            let width = match enc {
+                Some(Encoding::F64) => 8,
+                Some(Encoding::F32) => 4,
+                Some(Encoding::U8) => 1,
+                None => return Err("has a section of an unknown encoding".to_string()),
+            };
+            if !(1..=4).contains(&kind) {
+                return Err("has a section of an unknown kind".to_string());
+            }
+            if len != (self.rows * width) as u64
+                || offset
+                    .checked_add(len)
+                    .is_none_or(|e| e > self.bytes.len() as u64)
+            {
+                return Err("is damaged (a section lies outside it)".to_string());
+            }
+        }
+        Ok(())
+    }
+
+    /// The section of `kind` (and `column`, for dense columns), if the block has it.
+    pub fn section(&self, kind: Kind, column: u32) -> Option<Values<'a>> {
+        for s in 0..self.sections() {
+            let at = 8 + s * SECTION;
+            if u16_at(self.bytes, at) != kind as u16 || u32_at(self.bytes, at + 4) != column {
+                continue;
+            }
+            let offset = u64_at(self.bytes, at + 8) as usize;
+            let len = u64_at(self.bytes, at + 16) as usize;
+            let data = &self.bytes[offset..offset + len];
+            return match Encoding::from_u16(u16_at(self.bytes, at + 2)) {
+                Some(Encoding::F64) => Some(Values::F64(data)),
+                Some(Encoding::F32) => Some(Values::F32(data)),
+                Some(Encoding::U8) => Some(Values::U8(data)),
+                None => None,
+            };
+        }
+        None
+    }
+
+    /// Bytes of the block in the file.
+    pub fn len(&self) -> usize {
+        self.bytes.len()
+    }
+
+    /// True for a block of no bytes (never: a block has at least its table).
+    pub fn is_empty(&self) -> bool {
+        self.bytes.is_empty()
+    }
+}
+
+/// Removes a cache file that cannot be used (best effort).
+pub fn remove(path: &Path) {
+    let _ = fs::remove_file(path);
+}
+
+/// Where the passes of a fit take their blocks from.
+pub enum CacheState {
+    /// Parquet on every pass (`--no-cache`, or the cache cannot be written).
+    Off,
+    /// The next full pass reads Parquet and writes the cache into this directory.
+    Build(PathBuf),
+    /// Passes read the mapped cache.
+    Ready(BlockCache),
+}
+
+/// A line for the user about the cache.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CacheNote {
+    /// A warning (the fit goes on) rather than information.
+    pub warning: bool,
+    /// The sentence.
+    pub text: String,
+}
+
+/// How the passes of a fit ended up reading their blocks, for the summary.
+#[derive(Debug, Clone, PartialEq, Default, Serialize)]
+pub struct CacheStatus {
+    /// `cache` (mapped block cache), `parquet` (every pass decodes Parquet).
+    pub mode: String,
+    /// The cache file.
+    pub path: Option<PathBuf>,
+    /// Its size in bytes.
+    pub bytes: u64,
+}
+
+/// The cache of one fit: its key, where it stands, and notes for the user. Shared by
+/// the objectives of a fit (the first evaluation and the iteration loop).
+pub struct CacheSlot {
+    key: CacheKey,
+    state: Mutex<Option<CacheState>>,
+    notes: Mutex<Vec<CacheNote>>,
+}
+
+impl CacheSlot {
+    /// The cache of `key` in `dir` (none: `--no-cache`): opened when a valid one is
+    /// there, else to be built by the next pass (a damaged or stale one with a warning).
+    pub fn open(dir: Option<&Path>, key: CacheKey) -> CacheSlot {
+        let slot = CacheSlot {
+            key,
+            state: Mutex::new(None),
+            notes: Mutex::new(Vec::new()),
+        };
+        let state = match dir {
+            None => {
+                slot.note(
+                    false,
+                    "reading Parquet on every pass (--no-cache)".to_string(),
+                );
+                CacheState::Off
+            }
+            Some(dir) => match BlockCache::open(dir, &slot.key) {
+                Opened::Ready(cache) => {
+                    slot.note(
+                        false,
+                        format!(
+                            "passes read the block cache {} ({})",
+                            cache.path().display(),
+                            megabytes(cache.bytes())
+                        ),
+                    );
+                    CacheState::Ready(cache)
+                }
+                Opened::Missing => {
+                    slot.note(
+                        false,
+                        format!(
+                            "the first pass writes the block cache into {}",
+                            dir.display()
+                        ),
+                    );
+                    CacheState::Build(dir.to_path_buf())
+                }
+                Opened::Unusable(reason) => {
+                    let path = slot.key.path_in(dir);
+                    slot.note(
+                        true,
+                        format!(
+                            "the block cache {} cannot be used: {reason}; the next pass rebuilds it from Parquet",
+                            path.display()
+                        ),
+                    );
+                    remove(&path);
+                    CacheState::Build(dir.to_path_buf())
+                }
+            },
+        };
+        slot.put(state);
+        slot
+    }
+
+    /// A slot that reads Parquet on every pass for `reason` (told to the user).
+    pub fn off(key: CacheKey, reason: String) -> CacheSlot {
+        let slot = CacheSlot {
+            key,
+            state: Mutex::new(None),
+            notes: Mutex::new(Vec::new()),
+        };
+        slot.note(false, reason);
+        slot.put(CacheState::Off);
+        slot
+    }
+
+    /// The key.
+    pub fn key(&self) -> &CacheKey {
+        &self.key
+    }
+
+    /// Adds a note for the user.
+    pub fn note(&self, warning: bool, text: String) {
+        if let Ok(mut n) = self.notes.lock() {
+            n.push(CacheNote { warning, text });
+        }
+    }
+
+    /// The notes since the last call.
+    pub fn take_notes(&self) -> Vec<CacheNote> {
+        self.notes
+            .lock()
+            .map(|mut n| std::mem::take(&mut *n))
+            .unwrap_or_default()
+    }
+
+    /// Takes the state for a pass (put it back with [`CacheSlot::put`]).
+    pub fn take(&self) -> CacheState {
+        self.state
+            .lock()
+            .ok()
+            .and_then(|mut s| s.take())
+            .unwrap_or(CacheState::Off)
+    }
+
+    /// Puts the state back after a pass.
+    pub fn put(&self, state: CacheState) {
+        if let Ok(mut s) = self.state.lock() {
+            *s = Some(state);
+        }
+    }
+
+    /// How passes read their blocks now.
+    pub fn status(&self) -> CacheStatus {
+        let guard = self.state.lock().ok();
+        match guard.as_ref().and_then(|s| s.as_ref()) {
+            Some(CacheState::Ready(c)) => CacheStatus {
+                mode: "cache".to_string(),
+                path: Some(c.path().to_path_buf()),
+                bytes: c.bytes(),
+            },
+            _ => CacheStatus {
+                mode: "parquet".to_string(),
+                path: None,
+                bytes: 0,
+            },
+        }
+    }
+}
+
+/// Bytes as "12.3 MB".
+pub fn megabytes(bytes: u64) -> String {
+    format!("{:.1} MB", bytes as f64 / 1e6)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn block() -> (Block, Vec<f64>) {
+        let b = Block {
+            sparse: Default::default(),
+            rows: 3,
+            x: vec![],
+            y: vec![0.0, 1.0, 1.0],
+            w: vec![1.5, 0.1, 2.0],
+            file: 2,
+            first_row: 16,
+            holdout: vec![false, true, false],
+        };
+        // Column 0 fits f32 (with a null), column 1 needs f64.
+        let raw = vec![1.0, f64::NAN, -2.5, 0.1, 1e300, 3.0];
+        (b, raw)
+    }
+
+    #[test]
+    fn encodes_sections_at_their_precision_and_reads_them_back() {
+        let (b, raw) = block();
+        let mut out = Vec::new();
+        encode_block(&b, &raw, 2, &mut out);
+        let view = BlockView {
+            bytes: &out,
+            rows: 3,
+            file: 2,
+            first_row: 16,
+        };
+        view.validate().unwrap();
+        let y = view.section(Kind::Label, 0).unwrap();
+        assert!(matches!(y, Values::F32(_)));
+        let w = view.section(Kind::Weight, 0).unwrap();
+        assert!(matches!(w, Values::F64(_)), "0.1 is not an f32");
+        assert_eq!(w.get(1).to_bits(), 0.1f64.to_bits());
+        let h = view.section(Kind::Holdout, 0).unwrap();
+        assert_eq!((h.get(0), h.get(1)), (0.0, 1.0));
+        let c0 = view.section(Kind::Dense, 0).unwrap();
+        assert!(matches!(c0, Values::F32(_)));
+        assert!(c0.get(1).is_nan());
+        assert_eq!(c0.get(2), -2.5);
+        let c1 = view.section(Kind::Dense, 1).unwrap();
+        assert!(matches!(c1, Values::F64(_)));
+        let mut back = [0.0; 3];
+        c1.decode_into(0, &mut back, |v| v);
+        assert_eq!(
+            back.map(f64::to_bits),
+            [0.1f64, 1e300, 3.0].map(f64::to_bits)
+        );
+        assert!(view.section(Kind::Dense, 2).is_none());
+    }
+}
