@@ -51,6 +51,8 @@ pub mod error;
 pub mod evaluate;
 pub mod features;
 pub mod fit;
+#[doc(hidden)]
+pub mod fuzzing;
 pub mod holdout;
 pub mod inference;
 pub mod metrics;
@@ -60,6 +62,7 @@ pub mod optim;
 pub mod pass;
 pub mod predict;
 pub mod run_dir;
+pub mod settings_file;
 pub mod source;
 
 pub use error::{Error, ErrorKind, Result};

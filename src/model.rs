@@ -293,10 +293,18 @@ impl Model {
 
     /// Reads a model file.
     pub fn load(path: &Path) -> Result<Model> {
-        let text = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-        let value: Value = serde_json::from_slice(&text).map_err(|e| {
+        let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+        Model::from_json_slice(&bytes, path)
+    }
+
+    /// Reads a model from the bytes of a model file; `path` only names the file in
+    /// messages. Any bytes give a model or an [`Error`] of kind
+    /// [`Format`](crate::ErrorKind::Format), never a panic (the fuzz target `model`
+    /// calls this).
+    pub fn from_json_slice(bytes: &[u8], path: &Path) -> Result<Model> {
+        let value: Value = serde_json::from_slice(bytes).map_err(|e| {
             Error::format(format!(
-                "{} is not a model file of outcore (not valid JSON: {e})",
+                "{} is not a model file of outcore (not valid JSON: {e}); give the file that `outcore fit` wrote, or fit again",
                 path.display()
             ))
         })?;
@@ -304,23 +312,26 @@ impl Model {
             Some(MODEL_FORMAT) => {}
             Some(other) => {
                 return Err(Error::format(format!(
-                    "{} is a model of format '{other}'; this build reads '{MODEL_FORMAT}'",
+                    "{} is a model of format '{other}'; this build reads '{MODEL_FORMAT}': use the build that wrote it, or fit again",
                     path.display()
                 )))
             }
             None => {
                 return Err(Error::format(format!(
-                    "{} is not a model file of outcore (no \"format\" key)",
+                    "{} is not a model file of outcore (no \"format\" key); give the file that `outcore fit` wrote",
                     path.display()
                 )))
             }
         }
         let file: ModelFile = serde_json::from_value(value).map_err(|e| {
-            Error::format(format!("the model file {} is damaged: {e}", path.display()))
+            Error::format(format!(
+                "the model file {} is damaged: {e}; fit the model again",
+                path.display()
+            ))
         })?;
         Model::from_file(file).map_err(|e| {
             Error::format(format!(
-                "the model file {} is damaged: {}",
+                "the model file {} is damaged: {}; fit the model again",
                 path.display(),
                 e.message()
             ))
