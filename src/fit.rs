@@ -803,11 +803,19 @@ fn drive(
     // Identifiability of an unpenalized fit (collinear or duplicated columns): one extra
     // pass for the information matrix at the optimum, for narrow dense models only.
     // `--inference` factors the same matrix and warns by itself.
+    // It stays within the budgets: not after a budget stop, nor past --max-passes.
     let mut check_passes = 0;
+    let within_budget = !matches!(
+        stop,
+        FitStop::Optimizer(Stop::PassBudget | Stop::TimeBudget | Stop::Interrupted)
+    ) && settings
+        .max_passes
+        .is_none_or(|m| passes_now(&objective) < m);
     if settings.ridge == 0.0
         && settings.lasso == 0.0
         && !settings.inference
         && stop != FitStop::Separable
+        && within_budget
         && layout.width <= crate::inference::IDENTIFIABILITY_MAX_FEATURES
     {
         let training = session.design.training_only();

@@ -110,8 +110,11 @@ mod tests {
 
     #[test]
     fn columns_count_characters_not_bytes() {
-        assert_eq!(line_col("é = 1\nxé", 9), (2, 3));
+        // "é = 1\n" is 7 bytes; 'x' is byte 7, 'é' bytes 8 and 9.
+        assert_eq!(line_col("é = 1\nxé", 8), (2, 2));
+        assert_eq!(line_col("é = 1\nxé", 10), (2, 3));
         // An offset inside a character does not panic.
+        assert_eq!(line_col("é = 1\nxé", 9), (2, 2));
         assert_eq!(line_col("é", 1), (1, 1));
     }
 }
