@@ -1159,6 +1159,43 @@ fn drive(
             events,
         );
     }
+    // Identifiability of an unpenalized fit (collinear or duplicated columns): one extra
+    // pass for the information matrix at the optimum, for narrow dense models only.
+    // `--inference` factors the same matrix and warns by itself.
+    // It stays within the budgets: not after a budget stop, nor past --max-passes.
+    let mut check_passes = 0;
+    let within_budget = !matches!(
+        stop,
+        FitStop::Optimizer(Stop::PassBudget | Stop::TimeBudget | Stop::Interrupted)
+    ) && settings
+        .max_passes
+        .is_none_or(|m| passes_now(&objective) < m);
+    if settings.ridge == 0.0
+        && settings.lasso == 0.0
+        && !settings.inference
+        && stop != FitStop::Separable
+        && within_budget
+        && layout.width <= crate::inference::IDENTIFIABILITY_MAX_FEATURES
+    {
+        let training = session.design.training_only();
+        let req = crate::inference::Request {
+            source: &session.source,
+            plan: &session.plan,
+            design: &training,
+            layout,
+            x: optimizer.x(),
+            ridge: 0.0,
+            lasso: 0.0,
+            weight_sum: session.record.weight_sum,
+            max_features: crate::inference::IDENTIFIABILITY_MAX_FEATURES,
+            stop,
+        };
+        check_passes = 1;
+        if let Some(w) = crate::inference::identifiability(&req)? {
+            events(FitEvent::Warning(&w));
+            warnings.push(w);
+        }
+    }
     // Standard errors: one extra pass at the optimum; a failure is a warning, not an error.
     let inferred = if settings.inference {
         // The information matrix of the training rows only.
@@ -1191,7 +1228,7 @@ fn drive(
         gradient_max: optimizer.gradient_max(),
         tol: settings.tol,
         iterations: optimizer.state().iterations,
-        passes: passes_now(&objective) + inferred.passes,
+        passes: passes_now(&objective) + check_passes + inferred.passes,
         seconds: session.prior_seconds + session.started.elapsed().as_secs_f64(),
         rows: session.record.rows,
         weight_sum: session.record.weight_sum,
@@ -1263,10 +1300,15 @@ fn describe_files(source: &Source) -> String {
 /// no rows, no positive weight, a single row, a single class.
 fn check_rows(source: &Source, request: &FeatureRequest, summary: &Summary) -> Result<()> {
     let data = describe_files(source);
+    let hold = if source.files().len() == 1 {
+        "holds"
+    } else {
+        "hold"
+    };
     let target = &request.target;
     if summary.rows == 0 {
         return Err(Error::data(format!(
-            "{data} hold no rows; there is nothing to fit; check the step that wrote them"
+            "{data} {hold} no rows; there is nothing to fit; check the step that wrote them"
         )));
     }
     if summary.rows_weighted == 0 || summary.weight_sum <= 0.0 {
@@ -1277,12 +1319,12 @@ fn check_rows(source: &Source, request: &FeatureRequest, summary: &Summary) -> R
             Some(w) => format!(
                 "every row of {data} has weight 0 in the weight column '{w}'; at least two rows need a positive weight"
             ),
-            None => format!("{data} hold no usable row; there is nothing to fit"),
+            None => format!("{data} {hold} no usable row; there is nothing to fit"),
         }));
     }
     if summary.rows_weighted == 1 {
         return Err(Error::data(format!(
-            "{data} hold only 1 row (with a positive weight and a target '{target}'); a model needs at least 2 rows whose features vary"
+            "{data} {hold} only 1 row (with a positive weight and a target '{target}'); a model needs at least 2 rows whose features vary"
         )));
     }
     match request.loss {

@@ -237,10 +237,9 @@ struct Sums {
     z: Vec<f64>,
 }
 
-/// Computes the table with one pass over the data. Errors (usage or data) say why no
-/// table can be made; see [`after_fit`] for the fit's use.
-pub fn compute(req: &Request<'_>) -> Result<InferenceTable> {
-    check(req)?;
+/// The information matrix over the whole internal vector (summed form, the ridge
+/// Hessian added) and the weighted residual sum of squares, from one pass.
+fn information(req: &Request<'_>) -> Result<(DMatrix<f64>, f64)> {
     let layout = req.layout;
     let design = req.design;
     let source = req.source;
@@ -287,6 +286,19 @@ pub fn compute(req: &Request<'_>) -> Result<InferenceTable> {
             }
         }
     }
+    Ok((h, rss))
+}
+
+/// Computes the table with one pass over the data. Errors (usage or data) say why no
+/// table can be made; see [`after_fit`] for the fit's use.
+pub fn compute(req: &Request<'_>) -> Result<InferenceTable> {
+    check(req)?;
+    let layout = req.layout;
+    let design = req.design;
+    let dim = layout.dim();
+    let x = req.x;
+    let w = req.weight_sum;
+    let (h, rss) = information(req)?;
     // The coordinates in the table: intercepts, and every coefficient (with lasso: the
     // nonzero ones).
     let active: Vec<usize> = (0..dim)
@@ -441,9 +453,7 @@ fn invert_information(m: DMatrix<f64>, names: &[String]) -> Result<DMatrix<f64>>
     }))
 }
 
-/// The error for a (nearly) singular information matrix whose pivot `k` is tiny: column
-/// `k` is (almost) a combination of the columns before it, found from the leading
-/// factor (well conditioned, as its pivots passed).
+/// The error for a (nearly) singular information matrix whose pivot `k` is tiny.
 fn collinearity(
     l: &DMatrix<f64>,
     e: &DMatrix<f64>,
@@ -451,6 +461,25 @@ fn collinearity(
     pivot: f64,
     names: &[String],
 ) -> Error {
+    let (what, residual) = describe_collinearity(l, e, k, pivot, names);
+    Error::data(format!(
+        "the information matrix is singular or nearly so ({residual} for {}): {what}; \
+         standard errors are not defined. Drop one of these columns, or add a penalty such as \
+         --ridge 1e-4 (the numbers are then conditional on it)",
+        names[k]
+    ))
+}
+
+/// What a tiny pivot `k` means: column `k` is (almost) a combination of the columns
+/// before it, found from the leading factor (well conditioned, as its pivots passed);
+/// returns that sentence and the `1 − R²` text.
+fn describe_collinearity(
+    l: &DMatrix<f64>,
+    e: &DMatrix<f64>,
+    k: usize,
+    pivot: f64,
+    names: &[String],
+) -> (String, String) {
     let mut involved: Vec<(usize, f64)> = Vec::new();
     if k > 0 {
         let l11 = l.view((0, 0), (k, k)).clone_owned();
@@ -488,12 +517,85 @@ fn collinearity(
     } else {
         format!("1 − R² = {pivot:.1e}")
     };
-    Error::data(format!(
-        "the information matrix is singular or nearly so ({residual} for {}): {what}; \
-         standard errors are not defined. Drop one of these columns, or add a penalty such as \
-         --ridge 1e-4 (the numbers are then conditional on it)",
-        names[k]
-    ))
+    (what, residual)
+}
+
+/// Most features the identifiability check of an unpenalized fit runs for: its pass
+/// costs about `(features + 1)²` multiply-adds per row (a few ordinary passes at this
+/// width); wider fits skip it.
+pub const IDENTIFIABILITY_MAX_FEATURES: usize = 64;
+
+/// The identifiability check of an unpenalized fit: one pass for the information
+/// matrix at the optimum, equilibrated to unit diagonal and factored by Cholesky, as for
+/// the standard errors. A pivot `1 − R²` below [`COLLINEARITY_LIMIT`] means a direction
+/// of the coefficients that the data do not identify (collinear or duplicated columns):
+/// the warning names the columns involved. `Ok(None)`: every direction is identified.
+/// Only an interruption or a failed read is an error.
+pub fn identifiability(req: &Request<'_>) -> Result<Option<String>> {
+    if check(req).is_err() {
+        return Ok(None);
+    }
+    let layout = req.layout;
+    let dim = layout.dim();
+    let (h, _) = match information(req) {
+        Ok(v) => v,
+        // Non-finite curvature: the separation and overflow checks speak for that.
+        Err(e) if e.kind() == ErrorKind::Data => return Ok(None),
+        Err(e) => return Err(e),
+    };
+    let names: Vec<String> = (0..dim).map(|i| coordinate_name(req, i)).collect();
+    let mut inv_sqrt = vec![0.0; dim];
+    for a in 0..dim {
+        let d = h[(a, a)];
+        if !(d.is_finite() && d > 0.0) {
+            return Ok(Some(format!(
+                "the coefficient of {} is not identified: that column carries no \
+                 information in the rows used; drop it, or add --ridge",
+                names[a]
+            )));
+        }
+        inv_sqrt[a] = 1.0 / d.sqrt();
+    }
+    let full = DMatrix::from_fn(dim, dim, |a, b| h[(a, b)] * inv_sqrt[a] * inv_sqrt[b]);
+    if full.iter().any(|v| !v.is_finite()) {
+        return Ok(None);
+    }
+    // Each dependent column found is set aside and the rest factored again, so that
+    // every dependence is named (at most a few).
+    let mut active: Vec<usize> = (0..dim).collect();
+    let mut found: Vec<(String, String, String)> = Vec::new();
+    while found.len() < 4 {
+        let q = active.len();
+        let e = DMatrix::from_fn(q, q, |a, b| full[(active[a], active[b])]);
+        let names_active: Vec<String> = active.iter().map(|&i| names[i].clone()).collect();
+        let Some(chol) = nalgebra::Cholesky::new_with_substitute(e.clone(), f64::MIN_POSITIVE)
+        else {
+            break;
+        };
+        let l = chol.l();
+        let Some(k) = (0..q).find(|&k| l[(k, k)] * l[(k, k)] < COLLINEARITY_LIMIT) else {
+            break;
+        };
+        let pivot = l[(k, k)] * l[(k, k)];
+        let (what, residual) = describe_collinearity(&l, &e, k, pivot, &names_active);
+        found.push((names_active[k].clone(), what, residual));
+        active.remove(k);
+    }
+    if found.is_empty() {
+        return Ok(None);
+    }
+    let columns: Vec<&str> = found.iter().map(|(c, _, _)| c.as_str()).collect();
+    let details: Vec<String> = found
+        .iter()
+        .map(|(c, what, residual)| format!("{what} ({residual} for {c})"))
+        .collect();
+    Ok(Some(format!(
+        "the coefficients of {} are not identified by the data: {}; the split of the \
+         effect between these columns is arbitrary, so drop the dependent ones, or add a \
+         penalty such as --ridge 1e-4",
+        columns.join(", "),
+        details.join("; ")
+    )))
 }
 
 /// Adds one block's information (and residual sum of squares) to the shard sums.

@@ -52,6 +52,8 @@ pub mod error;
 pub mod evaluate;
 pub mod features;
 pub mod fit;
+#[doc(hidden)]
+pub mod fuzzing;
 pub mod holdout;
 pub mod inference;
 pub mod memory;
@@ -64,6 +66,7 @@ pub mod path;
 pub mod predict;
 pub mod report;
 pub mod run_dir;
+pub mod settings_file;
 pub mod source;
 pub mod weights_file;
 

@@ -321,10 +321,18 @@ impl Model {
 
     /// Reads a model file.
     pub fn load(path: &Path) -> Result<Model> {
-        let text = std::fs::read(path).map_err(|e| Error::io(path, e))?;
-        let value: Value = serde_json::from_slice(&text).map_err(|e| {
+        let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+        Model::from_json_slice(&bytes, path)
+    }
+
+    /// Reads a model from the bytes of a model file; `path` only names the file in
+    /// messages. Any bytes give a model or an [`Error`] of kind
+    /// [`Format`](crate::ErrorKind::Format), never a panic (the fuzz target `model`
+    /// calls this).
+    pub fn from_json_slice(bytes: &[u8], path: &Path) -> Result<Model> {
+        let value: Value = serde_json::from_slice(bytes).map_err(|e| {
             Error::format(format!(
-                "{} is not a model file of outcore (not valid JSON: {e})",
+                "{} is not a model file of outcore (not valid JSON: {e}); give the file that `outcore fit` wrote, or fit again",
                 path.display()
             ))
         })?;
@@ -332,19 +340,22 @@ impl Model {
             Some(MODEL_FORMAT) => {}
             Some(other) => {
                 return Err(Error::format(format!(
-                    "{} is a model of format '{other}'; this build reads '{MODEL_FORMAT}'",
+                    "{} is a model of format '{other}'; this build reads '{MODEL_FORMAT}': use the build that wrote it, or fit again",
                     path.display()
                 )))
             }
             None => {
                 return Err(Error::format(format!(
-                    "{} is not a model file of outcore (no \"format\" key)",
+                    "{} is not a model file of outcore (no \"format\" key); give the file that `outcore fit` wrote",
                     path.display()
                 )))
             }
         }
         let file: ModelFile = serde_json::from_value(value).map_err(|e| {
-            Error::format(format!("the model file {} is damaged: {e}", path.display()))
+            Error::format(format!(
+                "the model file {} is damaged: {e}; fit the model again",
+                path.display()
+            ))
         })?;
         let sparse_weights = match &file.hashed {
             Some(h) => Some(crate::weights_file::read_beside(path, h)?),
@@ -352,7 +363,7 @@ impl Model {
         };
         Model::from_file(file, sparse_weights).map_err(|e| {
             Error::format(format!(
-                "the model file {} is damaged: {}",
+                "the model file {} is damaged: {}; fit the model again",
                 path.display(),
                 e.message()
             ))

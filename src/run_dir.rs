@@ -108,7 +108,7 @@ impl RunDir {
         let text = fs::read(&file).map_err(|e| {
             if e.kind() == std::io::ErrorKind::NotFound {
                 Error::usage(format!(
-                    "{} is not the run directory of a fit (it has no {SETTINGS_FILE})",
+                    "{} is not the run directory of a fit (it has no {SETTINGS_FILE}); give the MODEL.run directory that `outcore fit` made",
                     path.display()
                 ))
             } else {

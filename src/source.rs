@@ -410,7 +410,7 @@ fn expand_inputs(inputs: &[String]) -> Result<Vec<PathBuf>> {
             }
             if found.is_empty() {
                 return Err(Error::usage(format!(
-                    "the directory {} holds no .parquet files",
+                    "the directory {} holds no .parquet files; point --data at Parquet files or a directory of them",
                     path.display()
                 )));
             }
@@ -436,7 +436,7 @@ fn expand_inputs(inputs: &[String]) -> Result<Vec<PathBuf>> {
             }
         } else {
             return Err(Error::usage(format!(
-                "the data file {} does not exist",
+                "the data file {} does not exist; check the path given to --data",
                 path.display()
             )));
         }

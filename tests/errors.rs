@@ -636,6 +636,172 @@ fn cases(w: &World) -> Vec<Case> {
         &["wrong_type.toml", "line 3", "max_passes"],
     ));
 
+    // --- more non-finite values: every kind of column and value ---
+    let p = variant(w, "neg_inf_feature.parquet", |c| {
+        c.x1[64] = Some(f64::NEG_INFINITY)
+    });
+    out.push(case(
+        "-infinity in a feature",
+        fit(w, &[p], &lx),
+        &["neg_inf_feature.parquet", "'x1'", "row 65", "-infinity"],
+    ));
+    let p = variant(w, "nan_target.parquet", |c| {
+        let mut v: Vec<f64> = c.x1.iter().map(|x| x.unwrap_or(0.0)).collect();
+        v[2] = f64::NAN;
+        c.extra
+            .push(("amount".into(), Arc::new(Float64Array::from(v))));
+    });
+    out.push(case(
+        "NaN in the target (squared)",
+        fit(
+            w,
+            &[p],
+            &[
+                "--target",
+                "amount",
+                "--features",
+                "x2",
+                "--loss",
+                "squared",
+            ],
+        ),
+        &["nan_target.parquet", "'amount'", "row 3", "NaN"],
+    ));
+    let p = variant(w, "nan_weight.parquet", |c| c.w[17] = Some(f64::NAN));
+    out.push(case(
+        "NaN in the weight",
+        fit(
+            w,
+            &[p],
+            &["--target", "y", "--features", "x1,x2", "--weight", "w"],
+        ),
+        &["nan_weight.parquet", "'w'", "row 18", "NaN"],
+    ));
+
+    // --- nulls under the other policies ---
+    let p = variant(w, "null_target_mean.parquet", |c| c.y[30] = None);
+    out.push(case(
+        "null target under --missing mean (the policy covers features only)",
+        fit(
+            w,
+            &[p],
+            &["--target", "y", "--features", "x1,x2", "--missing", "mean"],
+        ),
+        &["null_target_mean.parquet", "'y'", "row 31"],
+    ));
+    let p = variant(w, "null_feature_skip.parquet", |c| c.x2[44] = None);
+    out.push(case(
+        "null feature under --skip-missing-target (that flag covers the target only)",
+        fit(
+            w,
+            &[p],
+            &[
+                "--target",
+                "y",
+                "--features",
+                "x1,x2",
+                "--skip-missing-target",
+            ],
+        ),
+        &[
+            "null_feature_skip.parquet",
+            "'x2'",
+            "row 45",
+            "--missing mean",
+        ],
+    ));
+    let p = variant(w, "all_null_target.parquet", |c| c.y = vec![None; 120]);
+    out.push(case(
+        "every target null under --skip-missing-target",
+        fit(
+            w,
+            &[p],
+            &[
+                "--target",
+                "y",
+                "--features",
+                "x1,x2",
+                "--skip-missing-target",
+            ],
+        ),
+        &["all_null_target.parquet", "'y'"],
+    ));
+    let p = variant(w, "unknown_policy.parquet", |_| {});
+    out.push(case(
+        "unknown missing-value policy",
+        fit(
+            w,
+            &[p],
+            &["--target", "y", "--features", "x1,x2", "--missing", "zero"],
+        ),
+        &["'zero'", "mean"],
+    ));
+
+    // --- settings file: column names, penalties, syntax ---
+    let settings = |name: &str, text: &str| -> Vec<String> {
+        let cfg = w.input(name);
+        fs::write(&cfg, text).expect("write");
+        args(&[
+            "fit",
+            "--config",
+            &World::s(&cfg),
+            "--data",
+            &World::s(&good),
+            "--out",
+            &World::s(&w.out("model.json")),
+            "--quiet",
+        ])
+    };
+    out.push(case(
+        "settings file naming an unknown column",
+        settings(
+            "unknown_column.toml",
+            "target = \"y\"\nfeatures = [\"x1\", \"x9\"]\n",
+        ),
+        &["good.parquet", "'x9'"],
+    ));
+    out.push(case(
+        "settings file naming a column twice",
+        settings(
+            "twice.toml",
+            "target = \"y\"\nfeatures = [\"x2\", \"x2\"]\n",
+        ),
+        &["'x2'", "twice"],
+    ));
+    out.push(case(
+        "settings file with a key given twice",
+        settings("dup_key.toml", "target = \"y\"\nridge = 0.1\nridge = 0.2\n"),
+        &["dup_key.toml", "line 3", "ridge"],
+    ));
+    out.push(case(
+        "settings file with a negative penalty",
+        settings("neg_ridge.toml", "target = \"y\"\nridge = -0.5\n"),
+        &["ridge", "-0.5"],
+    ));
+    out.push(case(
+        "settings file that is not TOML",
+        settings("broken.toml", "target = \"y\"\n[[[\n"),
+        &["broken.toml", "line 2"],
+    ));
+    out.push(case(
+        "settings file that does not exist",
+        args(&[
+            "fit",
+            "--config",
+            &World::s(&w.input("absent.toml")),
+            "--data",
+            &World::s(&good),
+            "--out",
+            &World::s(&w.out("model.json")),
+            "--quiet",
+        ]),
+        &["absent.toml"],
+    ));
+    // `--hash-bits` out of range and the other hashed-feature refusals are rows of the
+    // "hashed and sparse features" part below. A damaged block cache is not a refusal:
+    // it is rebuilt from Parquet with a warning (tests/cache.rs checks torn, flipped,
+    // stale and unwritable caches).
+
     // --- where the output goes ---
     let mut a = fit(w, std::slice::from_ref(&good), &lx);
     let n = a.len();
@@ -880,6 +1046,80 @@ fn cases(w: &World) -> Vec<Case> {
         "standard errors of a hashed model",
         fit(w, std::slice::from_ref(&p), &a),
         &["--inference", "hashed"],
+    ));
+    let lacks = variant(w, "lacks_x1.parquet", |c| c.drop.push("x1"));
+    out.push(case(
+        "evaluate on data that lack a model column",
+        args(&[
+            "evaluate",
+            "--model",
+            &World::s(&w.out("model.json")),
+            "--data",
+            &World::s(&lacks),
+        ]),
+        &["lacks_x1.parquet", "'x1'"],
+    ));
+    let p = variant(w, "eval_label_two.parquet", |c| c.y[70] = Some(2));
+    out.push(case(
+        "evaluate: logistic label outside {0,1}",
+        args(&[
+            "evaluate",
+            "--model",
+            &World::s(&w.out("model.json")),
+            "--data",
+            &World::s(&p),
+        ]),
+        &["eval_label_two.parquet", "'y'", "row 71"],
+    ));
+    out.push(case(
+        "evaluate with a corrupt model file",
+        args(&[
+            "evaluate",
+            "--model",
+            &World::s(&corrupt),
+            "--data",
+            &World::s(&good),
+        ]),
+        &["corrupt.json"],
+    ));
+    out.push(case(
+        "inference with a corrupt model file",
+        args(&["inference", &World::s(&corrupt), "--data", &World::s(&good)]),
+        &["corrupt.json"],
+    ));
+    let not_model = w.input("not_model.json");
+    fs::write(&not_model, "{\"hello\": 1}\n").expect("write");
+    out.push(case(
+        "predict with a JSON file that is not a model",
+        predict(&not_model, &good),
+        &["not_model.json", "format"],
+    ));
+    let wrong_count = w.input("wrong_count.json");
+    let mut m: serde_json::Value = serde_json::from_str(&model_text).expect("model json");
+    m["internal"]["coefficients"]
+        .as_array_mut()
+        .expect("array")
+        .pop();
+    fs::write(&wrong_count, m.to_string()).expect("write");
+    out.push(case(
+        "predict with a model whose coefficients do not match its features",
+        predict(&wrong_count, &good),
+        &["wrong_count.json", "damaged"],
+    ));
+    let mut a = predict(&w.out("model.json"), &good);
+    let k = a.len();
+    a[k - 1] = World::s(&w.out("model.run"));
+    out.push(case(
+        "predict --out pointing at a directory",
+        a,
+        &["model.run", "directory"],
+    ));
+    let mut a = predict(&w.out("model.json"), &good);
+    a[k - 1] = World::s(&w.root.join("no_such_dir").join("s.parquet"));
+    out.push(case(
+        "predict --out in a directory that does not exist",
+        a,
+        &["no_such_dir", "does not exist"],
     ));
 
     // --- resume ---

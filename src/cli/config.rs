@@ -4,55 +4,15 @@
 use std::path::{Path, PathBuf};
 use std::time::Duration;
 
-use serde::Deserialize;
-
 use outcore::features::hashing::{self, SparseRequest};
 use outcore::features::{FeatureRequest, MissingPolicy};
 use outcore::fit::{CacheSetting, FitSettings};
 use outcore::holdout::HoldoutSettings;
 use outcore::objective::Loss;
+use outcore::settings_file::{self, SettingsFile};
 use outcore::{Error, Result};
 
 use super::args::FitArgs;
-
-/// The settings file: the same keys as the `fit` flags, with underscores.
-#[derive(Debug, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-struct FitConfig {
-    data: Option<Vec<String>>,
-    target: Option<String>,
-    weight: Option<String>,
-    features: Option<Vec<String>>,
-    loss: Option<String>,
-    ridge: Option<f64>,
-    lasso: Option<f64>,
-    tol: Option<f64>,
-    max_passes: Option<u64>,
-    max_seconds: Option<f64>,
-    history: Option<usize>,
-    threads: Option<usize>,
-    shards: Option<usize>,
-    block_rows: Option<usize>,
-    missing: Option<String>,
-    skip_missing_target: Option<bool>,
-    standardize: Option<bool>,
-    inference: Option<bool>,
-    inference_max_features: Option<usize>,
-    holdout: Option<f64>,
-    split_key: Option<String>,
-    holdout_patience: Option<u64>,
-    run: Option<PathBuf>,
-    out: Option<PathBuf>,
-    checkpoint_every: Option<String>,
-    categorical: Option<Vec<String>>,
-    cross: Option<Vec<String>>,
-    hash_bits: Option<u32>,
-    sparse_vector: Option<Vec<String>>,
-    gradient_memory: Option<f64>,
-    cache: Option<PathBuf>,
-    no_cache: Option<bool>,
-    precision: Option<String>,
-}
 
 /// A fit fully resolved from flags and settings file.
 #[derive(Debug, Clone)]
@@ -67,36 +27,6 @@ pub struct FitPlan {
     pub run: PathBuf,
     /// Checkpoints inside a pass.
     pub checkpoint_every: Duration,
-}
-
-fn read_config(path: &Path) -> Result<FitConfig> {
-    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
-    toml::from_str(&text).map_err(|e| {
-        let (line, col) = e.span().map(|s| line_col(&text, s.start)).unwrap_or((0, 0));
-        // Name the key of that line when the parser's message does not (wrong types).
-        let key = text
-            .lines()
-            .nth(line.saturating_sub(1))
-            .and_then(|l| l.split_once('='))
-            .map(|(k, _)| k.trim().trim_matches('"'))
-            .filter(|k| !k.is_empty() && !e.message().contains(*k));
-        let message = match key {
-            Some(k) => format!("key '{k}': {}", e.message()),
-            None => e.message().to_string(),
-        };
-        Error::usage(format!(
-            "the settings file {} is wrong at line {line}, column {col}: {}",
-            path.display(),
-            message.trim_end()
-        ))
-    })
-}
-
-fn line_col(text: &str, offset: usize) -> (usize, usize) {
-    let before = &text[..offset.min(text.len())];
-    let line = before.matches('\n').count() + 1;
-    let col = before.len() - before.rfind('\n').map_or(0, |i| i + 1) + 1;
-    (line, col)
 }
 
 fn relative_to(base: &Path, p: &str) -> String {
@@ -147,9 +77,9 @@ pub fn resolve(args: &FitArgs) -> Result<FitPlan> {
     let (config, base) = match &args.config {
         Some(path) => {
             let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
-            (read_config(path)?, base)
+            (settings_file::read(path)?, base)
         }
-        None => (FitConfig::default(), PathBuf::new()),
+        None => (SettingsFile::default(), PathBuf::new()),
     };
     let data = if !args.data.is_empty() {
         args.data.clone()

@@ -18,6 +18,20 @@ use super::output;
 /// How often a plain progress line is printed during a long pass (stderr not a terminal).
 pub const LINE_EVERY: Duration = Duration::from_secs(10);
 
+/// Environment variable that changes [`LINE_EVERY`] (seconds, e.g. `0.5`; for logs of
+/// batch jobs and for the tests).
+pub const LINE_EVERY_VAR: &str = "OUTCORE_PROGRESS_SECONDS";
+
+/// The interval of the plain progress lines: [`LINE_EVERY`] unless [`LINE_EVERY_VAR`]
+/// holds a positive number of seconds.
+fn line_every() -> Duration {
+    std::env::var(LINE_EVERY_VAR)
+        .ok()
+        .and_then(|v| v.trim().parse::<f64>().ok())
+        .filter(|s| s.is_finite() && *s > 0.0 && *s < 1e9)
+        .map_or(LINE_EVERY, Duration::from_secs_f64)
+}
+
 /// How often the ticker looks at the counters.
 const TICK: Duration = Duration::from_millis(100);
 
@@ -41,7 +55,8 @@ impl Ticker {
         let objective = Arc::new(AtomicU64::new(f64::NAN.to_bits()));
         let stop = Arc::new(AtomicBool::new(false));
         let bar = std::io::stderr().is_terminal().then(|| {
-            let bar = ProgressBar::with_draw_target(Some(0), ProgressDrawTarget::stderr());
+            // Hidden until the first pass starts (else it shows an empty 0/0 bar).
+            let bar = ProgressBar::with_draw_target(Some(0), ProgressDrawTarget::hidden());
             let style = ProgressStyle::with_template(
                 "pass {prefix:>3} [{bar:28}] {percent:>3}%  {human_pos}/{human_len} rows  ETA {eta}  {msg}",
             )
@@ -126,6 +141,7 @@ fn tick(
     stop: &AtomicBool,
     bar: Option<&ProgressBar>,
 ) {
+    let every = line_every();
     let mut pass = 0;
     let mut pass_started = Instant::now();
     let mut last_line = Instant::now();
@@ -143,6 +159,9 @@ fn tick(
             pass_started = Instant::now();
             last_line = pass_started;
             if let Some(bar) = bar {
+                if bar.is_hidden() {
+                    bar.set_draw_target(ProgressDrawTarget::stderr());
+                }
                 bar.reset();
                 bar.set_length(total);
                 bar.set_prefix(pass.to_string());
@@ -165,7 +184,7 @@ fn tick(
                 ));
             }
             None => {
-                if last_line.elapsed() >= LINE_EVERY && done < total {
+                if last_line.elapsed() >= every && done < total {
                     last_line = Instant::now();
                     let eta = if rows_per_second > 0.0 {
                         format!("{:.0}s", (total - done) as f64 / rows_per_second)

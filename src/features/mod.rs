@@ -235,12 +235,12 @@ pub fn resolve_columns(source: &Source, request: &FeatureRequest) -> Result<Vec<
             for name in list {
                 if !seen.insert(name.as_str()) {
                     return Err(Error::usage(format!(
-                        "the feature '{name}' is listed twice in --features"
+                        "the feature '{name}' is listed twice in --features (or features in the settings file); name it once"
                     )));
                 }
                 if name == &request.target || Some(name) == request.weight.as_ref() {
                     return Err(Error::usage(format!(
-                        "'{name}' is the target or the weight column and cannot also be a feature"
+                        "'{name}' is the target or the weight column and cannot also be a feature; leave it out of --features"
                     )));
                 }
             }
@@ -307,11 +307,16 @@ pub fn resolve_columns(source: &Source, request: &FeatureRequest) -> Result<Vec<
     };
     if !ok {
         return Err(Error::usage(format!(
-            "the target '{}' of {} is a {} column, which the {} loss cannot use",
+            "the target '{}' of {} is a {} column, which the {} loss cannot use; {}",
             request.target,
             first.path.display(),
             target_class.describe(),
-            request.loss.as_str()
+            request.loss.as_str(),
+            if target_class == ColumnClass::Text {
+                "for classes named by text use --loss softmax, or recode the column"
+            } else {
+                "choose another --loss or another --target"
+            }
         )));
     }
     Ok(features)
@@ -541,7 +546,7 @@ pub fn collect_stats_split(
         for (j, (name, m)) in total.columns.iter().enumerate() {
             if m.nulls + held_out_nulls[j] > 0 {
                 return Err(Error::data(format!(
-                    "the feature '{name}' has {} null values, the first at {}; \
+                    "the feature '{name}' has {} null value(s), the first at {}; \
                      fill them, drop the column, or use --missing mean",
                     m.nulls + held_out_nulls[j],
                     first_null[j].as_deref().unwrap_or("an unknown row")
@@ -1113,7 +1118,7 @@ impl Design {
     fn class_of(&self, label: &str, place: Place<'_>, i: usize) -> Result<f64> {
         self.class_index.get(label).map(|c| *c as f64).ok_or_else(|| {
             Error::data(format!(
-                "the target '{}' has the class '{label}' at {}, which the model does not know (its classes: {})",
+                "the target '{}' has the class '{label}' at {}, which the model does not know (its classes: {}); leave such rows out, or fit a model on data with that class",
                 self.target,
                 place.row(i),
                 self.classes.join(", ")
