@@ -203,17 +203,7 @@ pub fn evaluate(model: &Model, source: &Source, options: &EvaluateOptions) -> Re
                     r.push(z[i], y == 1.0, w);
                 }
                 Acc::Softmax(m) => {
-                    for (c, mc) in row_margins.iter_mut().enumerate() {
-                        *mc = if layout.reference {
-                            if c == 0 {
-                                0.0
-                            } else {
-                                z[(c - 1) * n + i]
-                            }
-                        } else {
-                            z[c * n + i]
-                        };
-                    }
+                    layout.class_margins(&z, n, i, &mut row_margins);
                     m.push(&row_margins, y as usize, w);
                 }
                 Acc::Squared(m) => m.push(z[i], y, w),

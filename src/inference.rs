@@ -623,17 +623,7 @@ fn accumulate(
             let k = layout.classes;
             let mut m = vec![0.0; k];
             for i in 0..n {
-                for (cls, v) in m.iter_mut().enumerate() {
-                    *v = if layout.reference {
-                        if cls == 0 {
-                            0.0
-                        } else {
-                            acc.z[(cls - 1) * n + i]
-                        }
-                    } else {
-                        acc.z[cls * n + i]
-                    };
-                }
+                layout.class_margins(&acc.z, n, i, &mut m);
                 let lse = log_sum_exp(&m);
                 let w = block.weight(i);
                 for g in 0..groups {

@@ -71,6 +71,24 @@ impl Layout {
         self.groups * (1 + self.width)
     }
 
+    /// The margins of the `classes` outputs of row `i` (softmax) into `out`, from the
+    /// group-major margins `z` of `n` rows (`z[g * n + i]`); the reference class, when
+    /// the layout has one, gets 0.
+    #[inline]
+    pub fn class_margins(&self, z: &[f64], n: usize, i: usize, out: &mut [f64]) {
+        for (c, m) in out.iter_mut().enumerate() {
+            *m = if self.reference {
+                if c == 0 {
+                    0.0
+                } else {
+                    z[(c - 1) * n + i]
+                }
+            } else {
+                z[c * n + i]
+            };
+        }
+    }
+
     /// Index of the first sparse coefficient of group `g`.
     pub fn sparse_start(&self, g: usize) -> usize {
         self.dense_dim() + g * self.sparse
@@ -1051,17 +1069,7 @@ fn softmax_rows(
     let mut held_sum = 0.0;
     let mut held_weight = 0.0;
     for i in 0..n {
-        for (c, m) in margins.iter_mut().enumerate() {
-            *m = if layout.reference {
-                if c == 0 {
-                    0.0
-                } else {
-                    z[(c - 1) * n + i]
-                }
-            } else {
-                z[c * n + i]
-            };
-        }
+        layout.class_margins(z, n, i, margins);
         let y = tile.y[i] as usize;
         let w = tile.weight(i);
         let lse = loss::log_sum_exp(margins);

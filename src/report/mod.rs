@@ -307,17 +307,7 @@ pub fn score(model: &Model, source: &Source) -> Result<Scoring> {
                     binary.1.push(z[i], y == 1.0, w);
                 }
                 Loss::Softmax => {
-                    for (c, m) in row_margins.iter_mut().enumerate() {
-                        *m = if layout.reference {
-                            if c == 0 {
-                                0.0
-                            } else {
-                                z[(c - 1) * n + i]
-                            }
-                        } else {
-                            z[c * n + i]
-                        };
-                    }
+                    layout.class_margins(&z, n, i, &mut row_margins);
                     softmax.push(&row_margins, y as usize, w);
                 }
                 Loss::Squared | Loss::Poisson => {
