@@ -368,7 +368,12 @@ pub fn run_path(
     let mut pairs: Vec<(Vec<f64>, Vec<f64>)> = Vec::new();
     for (index, &strength) in strengths.iter().enumerate() {
         events(PathEvent::Begin { index, strength })?;
-        let settings = step_settings(base, path.kind, strength);
+        let mut settings = step_settings(base, path.kind, strength);
+        if let (fit::CacheSetting::Run, Some(root)) = (&settings.cache, &control.checkpoint_dir) {
+            // One block cache for every strength (its key leaves the penalty out), beside
+            // their run directories, instead of one per strength.
+            settings.cache = fit::CacheSetting::Dir(root.clone());
+        }
         let (x, history) = match (path.warm, steps.last()) {
             (true, Some(prev)) => (
                 Some(predicted_start(&steps, strength, layout)),

@@ -10,6 +10,7 @@
 //! DIR/chosen.json      the chosen strength's model
 //! DIR/models/s001.json one model per strength, strongest first
 //! DIR/runs/s001/       each strength's run directory (settings, log.jsonl, checkpoint)
+//! DIR/runs/blocks-*.ocache  the block cache every strength reads (unless --cache/--no-cache)
 //! ```
 
 use std::path::{Path, PathBuf};
