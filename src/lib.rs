@@ -67,6 +67,7 @@ pub mod predict;
 pub mod report;
 pub mod run_dir;
 pub mod settings_file;
+pub mod simd;
 pub mod source;
 pub mod weights_file;
 

@@ -831,7 +831,7 @@ impl PoissonMetrics {
     #[inline]
     pub fn push(&mut self, z: f64, y: f64, w: f64) {
         self.rows += 1;
-        let mu = z.exp();
+        let mu = crate::objective::elementary::exp(z);
         let ylog = if y > 0.0 { y * (y.ln() - z) } else { 0.0 };
         self.weight.add(w);
         self.deviance.add(w * 2.0 * (ylog - (y - mu)));

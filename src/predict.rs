@@ -206,7 +206,12 @@ fn score_arrays(model: &Model, block: &Block, z: &[f64]) -> Vec<ArrayRef> {
         Loss::Squared => vec![Arc::new(Float64Array::from(z[..n].to_vec()))],
         Loss::Poisson => {
             let margin = Float64Array::from(z[..n].to_vec());
-            let mu = Float64Array::from(z[..n].iter().map(|v| v.exp()).collect::<Vec<_>>());
+            let mu = Float64Array::from(
+                z[..n]
+                    .iter()
+                    .map(|v| crate::objective::elementary::exp(*v))
+                    .collect::<Vec<_>>(),
+            );
             vec![Arc::new(margin), Arc::new(mu)]
         }
         Loss::Softmax => {

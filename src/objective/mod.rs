@@ -2,6 +2,7 @@
 //! evaluated by one pass over the data per call. The L1 term is left to the optimizer
 //! (OWL-QN), which receives it as per-coordinate weights.
 
+pub mod elementary;
 pub mod glm;
 pub mod loss;
 pub mod sparse_kernel;

@@ -312,7 +312,7 @@ pub fn score(model: &Model, source: &Source) -> Result<Scoring> {
                 }
                 Loss::Squared | Loss::Poisson => {
                     let pred = if model.loss == Loss::Poisson {
-                        z[i].exp()
+                        crate::objective::elementary::exp(z[i])
                     } else {
                         z[i]
                     };
