@@ -819,6 +819,11 @@ pub fn fit_prepared(
     };
     let cache = cache_slot(&source, &design, settings, control);
     cache_notes(&cache, events);
+    // A fresh start has every row at the same margin: its evaluation comes from the
+    // statistics pass, not from a pass of its own.
+    let known_start = (start.x.is_none() && crate::objective::start::used_by_fits(design.loss))
+        .then(|| crate::objective::start::start_totals(&design, summary, layout, &x0))
+        .flatten();
     let mut session = Session {
         data: prepared.data.clone(),
         settings: settings.clone(),
@@ -834,6 +839,9 @@ pub fn fit_prepared(
     };
     let optim_settings = optimizer_settings(settings, layout);
     let mut objective = session.objective();
+    if let Some(totals) = known_start {
+        objective = objective.with_start_totals(&x0, totals);
+    }
     let optimizer = Optimizer::new(&mut objective, &x0, optim_settings);
     cache_notes(&session.cache, events);
     let mut optimizer = optimizer?;

@@ -25,7 +25,7 @@ use crate::{Error, Result};
 use hashing::{SparseDesign, SparseRequest};
 use heavy_hitters::Sketch;
 use sparse::SparseRows;
-use stats::Moments;
+use stats::{Comoments, Moments};
 use values::Place;
 
 /// What to do with a null feature value.
@@ -124,6 +124,12 @@ pub struct Summary {
     pub held_out_rows: u64,
     /// Sum of the weights of the held-out rows.
     pub held_out_weight: f64,
+    /// Sums of each candidate feature column against the target (numeric targets of the
+    /// one-output losses; empty for softmax), in the order of `columns`: the gradient at
+    /// the starting point comes from them (see [`crate::objective::start`]).
+    pub target_columns: Vec<Comoments>,
+    /// Moments of the target over the held-out rows (numeric targets).
+    pub held_out_target: Moments,
 }
 
 /// The fixed transformation from record batches to blocks.
@@ -423,6 +429,9 @@ struct StatsAcc {
     held_out_labels: BTreeSet<String>,
     /// Most frequent values of each hashed feature.
     sketches: Vec<Sketch>,
+    /// Feature columns against the target (one-output losses).
+    comoments: Vec<Comoments>,
+    held_out_target: Moments,
 }
 
 /// The statistics pass: reads target, weight and every candidate feature once, checks
@@ -488,6 +497,8 @@ pub fn collect_stats_split(
             held_out_nulls: vec![0; features.len()],
             held_out_labels: BTreeSet::new(),
             sketches: vec![Sketch::new(heavy_hitters::DEFAULT_COUNTERS); hashed_count],
+            comoments: vec![Comoments::default(); features.len()],
+            held_out_target: Moments::default(),
         },
         |acc, at| stats_block(acc, source, request, features, split, sparse.as_ref(), &at),
     )?;
@@ -506,6 +517,12 @@ pub fn collect_stats_split(
         held_out_rows: 0,
         held_out_weight: 0.0,
         frequent: vec![Sketch::new(heavy_hitters::DEFAULT_COUNTERS); hashed_count],
+        target_columns: if request.loss == Loss::Softmax {
+            Vec::new()
+        } else {
+            vec![Comoments::default(); features.len()]
+        },
+        held_out_target: Moments::default(),
     };
     let mut held_out_nulls = vec![0u64; features.len()];
     let mut held_out_labels = BTreeSet::new();
@@ -526,6 +543,10 @@ pub fn collect_stats_split(
             }
         }
         total.target.merge(&shard.target);
+        total.held_out_target.merge(&shard.held_out_target);
+        for (t, c) in total.target_columns.iter_mut().zip(&shard.comoments) {
+            t.merge(c);
+        }
         labels.extend(shard.labels);
         numeric_labels.extend(shard.numeric_labels);
         for (k, v) in shard.class_weights {
@@ -641,6 +662,9 @@ fn stats_block(
             used[i] = false;
             acc.held_out_rows += 1;
             acc.held_out_weight += weight_of(i);
+            if let TargetValues::Numbers(v) = &target {
+                acc.held_out_target.push(v.value(i), weight_of(i));
+            }
             if request.loss == Loss::Softmax {
                 let label = match &target {
                     TargetValues::Numbers(v) => Some(numeric_label(v.value(i))),
@@ -688,7 +712,22 @@ fn stats_block(
         let values = values::as_f64(array, name, place)?;
         values::check_finite(&values, name, place)?;
         let m = &mut acc.columns[j];
+        // The target as a number, for the sums against the target (one-output losses).
+        let numbers = match &target {
+            TargetValues::Numbers(v) if request.loss != Loss::Softmax => Some(v),
+            _ => None,
+        };
+        let c = &mut acc.comoments[j];
         for i in 0..n {
+            if used[i] {
+                if let Some(y) = numbers {
+                    if values.is_null(i) {
+                        c.push_null(y.value(i), weight_of(i));
+                    } else {
+                        c.push(values.value(i), y.value(i), weight_of(i));
+                    }
+                }
+            }
             if !used[i] {
                 if !held.is_empty() && held[i] && values.is_null(i) {
                     acc.held_out_nulls[j] += 1;

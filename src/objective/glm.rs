@@ -2,6 +2,7 @@
 
 use std::time::Duration;
 
+use super::start::PassTotals;
 use crate::cache::{encode_block, BlockCache, BlockView, CacheSlot, CacheState, CacheWriter, Kind};
 use crate::checkpoint::{PartialPass, ShardProgress};
 use crate::features::sparse::SparseRows;
@@ -282,6 +283,8 @@ pub struct GlmObjective<'a> {
     holdout_memo: Vec<(u64, f64)>,
     /// The block cache of the fit (none: every pass reads Parquet).
     cache: Option<&'a CacheSlot>,
+    /// The sums at the starting point, known without a pass (see [`super::start`]).
+    start: Option<(Vec<f64>, PassTotals)>,
 }
 
 impl<'a> GlmObjective<'a> {
@@ -308,7 +311,15 @@ impl<'a> GlmObjective<'a> {
             resume_from: None,
             holdout_memo: Vec::new(),
             cache: None,
+            start: None,
         }
+    }
+
+    /// The sums of the evaluation at `x`, known without a pass (from the statistics
+    /// pass): an evaluation at exactly `x` uses them instead of reading the data.
+    pub fn with_start_totals(mut self, x: &[f64], totals: PassTotals) -> Self {
+        self.start = (totals.grad.len() == self.layout.dim()).then(|| (x.to_vec(), totals));
+        self
     }
 
     /// Reads blocks through the fit's block cache (building it in the first full pass).
@@ -615,36 +626,58 @@ impl Objective for GlmObjective<'_> {
     fn eval(&mut self, x: &[f64], grad: &mut [f64]) -> Result<f64> {
         let layout = self.layout;
         let design = self.design;
-        let starts = self.starts_for(x);
-        let shards = match self.cache {
-            None => self.parquet_pass(x, starts, None)?,
-            Some(slot) => {
-                let state = slot.take();
-                let (outcome, state) = self.pass_with_cache(slot, state, x, starts);
-                slot.put(state);
-                outcome?
+        let known = match &self.start {
+            Some((at, totals)) if self.resume_from.is_none() && at.as_slice() == x => {
+                Some(totals.clone())
+            }
+            _ => None,
+        };
+        let mut overflow = None;
+        let totals = match known {
+            Some(totals) => totals,
+            None => {
+                let starts = self.starts_for(x);
+                let shards = match self.cache {
+                    None => self.parquet_pass(x, starts, None)?,
+                    Some(slot) => {
+                        let state = slot.take();
+                        let (outcome, state) = self.pass_with_cache(slot, state, x, starts);
+                        slot.put(state);
+                        outcome?
+                    }
+                };
+                crate::memory::sample();
+                self.passes += 1;
+                let mut totals = PassTotals {
+                    loss: 0.0,
+                    grad: vec![0.0; layout.dim()],
+                    wrong: 0.0,
+                    holdout_loss: 0.0,
+                    holdout_weight: 0.0,
+                };
+                for shard in shards.iter().map(|s| &s.t) {
+                    totals.loss += shard.loss;
+                    totals.wrong += shard.wrong;
+                    totals.holdout_loss += shard.holdout_loss;
+                    totals.holdout_weight += shard.holdout_weight;
+                    for (g, s) in totals.grad.iter_mut().zip(&shard.grad) {
+                        *g += s;
+                    }
+                    if overflow.is_none() {
+                        overflow = shard.overflow.clone();
+                    }
+                }
+                totals
             }
         };
-        crate::memory::sample();
-        self.passes += 1;
-        let mut loss_sum = 0.0;
-        let mut wrong = 0.0;
-        let mut overflow = None;
-        let mut holdout_sum = 0.0;
-        let mut holdout_weight = 0.0;
-        grad.fill(0.0);
-        for shard in shards.iter().map(|s| &s.t) {
-            loss_sum += shard.loss;
-            wrong += shard.wrong;
-            holdout_sum += shard.holdout_loss;
-            holdout_weight += shard.holdout_weight;
-            for (g, s) in grad.iter_mut().zip(&shard.grad) {
-                *g += s;
-            }
-            if overflow.is_none() {
-                overflow = shard.overflow.clone();
-            }
-        }
+        let PassTotals {
+            loss: loss_sum,
+            grad: sums,
+            wrong,
+            holdout_loss: holdout_sum,
+            holdout_weight,
+        } = totals;
+        grad.copy_from_slice(&sums);
         let inv_w = 1.0 / self.weight_sum;
         let mean_loss = loss_sum * inv_w;
         let mut f = mean_loss;

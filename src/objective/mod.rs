@@ -6,6 +6,7 @@ pub mod elementary;
 pub mod glm;
 pub mod loss;
 pub mod sparse_kernel;
+pub mod start;
 
 pub use glm::{GlmObjective, Layout};
 pub use loss::Loss;
