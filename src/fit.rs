@@ -460,14 +460,6 @@ fn cache_slot(
         .as_ref()
         .map(|h| serde_json::json!({"fraction": h.fraction, "key": h.key}));
     let key = CacheKey::new(source, design, holdout);
-    if design.sparse.is_some() && settings.cache != CacheSetting::Off {
-        // The cache format has no CSR sections yet: hashed and sparse-vector features
-        // are rebuilt from Parquet on every pass.
-        return CacheSlot::off(
-            key,
-            "reading Parquet on every pass: the block cache does not hold hashed or sparse-vector features yet".to_string(),
-        );
-    }
     let dir = settings.cache.dir(control.checkpoint_dir.as_deref());
     CacheSlot::open(dir.as_deref(), key)
 }
