@@ -479,3 +479,105 @@ fn a_cache_built_with_other_hash_bits_is_stale() {
     );
     assert_eq!(fitted(&stale), fitted(&plain));
 }
+
+/// Checkpoints of a wide model (2^18 hashed weights, 20 history pairs: about 90 MB)
+/// cost more than the iterations between them: they are spaced out (the fit says so),
+/// and a fit stopped by a budget and resumed from its last, older checkpoint ends bitwise
+/// where the uninterrupted fit ends.
+#[test]
+fn wide_checkpoints_are_spaced_out_and_a_resume_ends_identically() {
+    let (dir, data) = data_dir(3000);
+    let mut args: Vec<String> = [
+        "--data",
+        &data.display().to_string(),
+        "--target",
+        "late",
+        "--categorical",
+        "zone,store,hour,tags",
+        "--cross",
+        "zone*hour",
+        "--hash-bits",
+        "18",
+        "--history",
+        "20",
+        "--ridge",
+        "1e-3",
+        "--tol",
+        "1e-9",
+        "--threads",
+        "2",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    let fit = |name: &str, extra: &[&str]| {
+        let mut a = vec!["fit".to_string()];
+        a.extend(args.iter().cloned());
+        a.extend(extra.iter().map(|s| s.to_string()));
+        a.extend([
+            "--out".into(),
+            dir.path()
+                .join(format!("{name}.json"))
+                .display()
+                .to_string(),
+            "--run".into(),
+            dir.path().join(format!("{name}.run")).display().to_string(),
+        ]);
+        common::run_outcore(&a)
+    };
+    let full = fit("full", &[]);
+    let err = String::from_utf8_lossy(&full.stderr).into_owned();
+    // Converged, or stopped flat at this tight tolerance: either way deterministic.
+    assert!(matches!(full.status.code(), Some(0 | 1)), "{err}");
+    assert!(err.contains("model written"), "{err}");
+    assert!(err.contains("a checkpoint takes"), "{err}");
+    let model: Value =
+        serde_json::from_slice(&std::fs::read(dir.path().join("full.json")).unwrap()).unwrap();
+    let iterations = model["fit"]["iterations"].as_u64().unwrap();
+    assert!(iterations > 8, "{model}");
+    let last = outcore::checkpoint::load(&dir.path().join("full.run")).expect("checkpoint");
+    assert!(
+        last.checkpoint.state.iterations + 1 < iterations,
+        "checkpoint at iteration {} of {iterations}",
+        last.checkpoint.state.iterations
+    );
+
+    let cut = fit("cut", &["--max-passes", "60"]);
+    assert_eq!(
+        cut.status.code(),
+        Some(1),
+        "{}",
+        String::from_utf8_lossy(&cut.stderr)
+    );
+    let run = dir.path().join("cut.run");
+    let older = outcore::checkpoint::load(&run).expect("checkpoint");
+    eprintln!(
+        "the budget stop's last checkpoint is of iteration {}",
+        older.checkpoint.state.iterations
+    );
+    let resumed = common::run_outcore(&[
+        "resume".to_string(),
+        run.display().to_string(),
+        "--max-passes".into(),
+        "100000".into(),
+        "--quiet".into(),
+    ]);
+    assert_eq!(
+        resumed.status.code(),
+        full.status.code(),
+        "{}",
+        String::from_utf8_lossy(&resumed.stderr)
+    );
+    let again: Value =
+        serde_json::from_slice(&std::fs::read(dir.path().join("cut.json")).unwrap()).unwrap();
+    for key in ["objective", "iterations", "passes", "gradient_max"] {
+        assert_eq!(again["fit"][key], model["fit"][key], "{key}");
+    }
+    assert_eq!(again["intercept"], model["intercept"]);
+    let weights = |name: &str| std::fs::read(dir.path().join(name)).unwrap();
+    assert!(
+        weights("cut.weights.bin") == weights("full.weights.bin"),
+        "the hashed weights differ"
+    );
+    args.clear();
+}
