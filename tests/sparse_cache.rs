@@ -3,7 +3,10 @@
 //! Parquet on every pass (`--no-cache`); the cache is reused by a refit with another
 //! penalty; a damaged CSR section is caught (by the block checksum, or by the CSR checks
 //! when the checksum was recomputed over a bad index) and rebuilt with a warning; a
-//! cache built with other hash bits is stale.
+//! cache built with other hash bits is stale. Also: the pair form of a sparse vector
+//! (`--sparse-vector IDX,VAL:DIM`) gives the fit of the `list<struct>` form of the same
+//! vectors, and a design of hashed features only (no dense column) reads blocks larger
+//! than a tile.
 //!
 //! The comparison is against the project's own Parquet path, which `tests/sparse.rs`
 //! checks against scipy (L-BFGS-B on a scipy.sparse design, logistic and softmax).
@@ -101,9 +104,22 @@ fn write_orders(path: &Path, rows: usize) {
     let items = StructArray::new(
         fields.clone(),
         vec![
-            Arc::new(Int64Array::from(b_index)) as ArrayRef,
-            Arc::new(Float64Array::from(b_value)) as ArrayRef,
+            Arc::new(Int64Array::from(b_index.clone())) as ArrayRef,
+            Arc::new(Float64Array::from(b_value.clone())) as ArrayRef,
         ],
+        None,
+    );
+    // The same vectors as a pair of list columns (indices, values).
+    let basket_ids = ListArray::new(
+        Arc::new(Field::new("item", DataType::Int64, false)),
+        OffsetBuffer::from_lengths(b_len.clone()),
+        Arc::new(Int64Array::from(b_index.clone())),
+        None,
+    );
+    let basket_values = ListArray::new(
+        Arc::new(Field::new("item", DataType::Float64, false)),
+        OffsetBuffer::from_lengths(b_len.clone()),
+        Arc::new(Float64Array::from(b_value.clone())),
         None,
     );
     let basket = ListArray::new(
@@ -130,6 +146,8 @@ fn write_orders(path: &Path, rows: usize) {
         ("hour", Arc::new(Int64Array::from(hour))),
         ("tags", Arc::new(tb.finish())),
         ("basket", Arc::new(basket)),
+        ("basket_ids", Arc::new(basket_ids)),
+        ("basket_values", Arc::new(basket_values)),
         ("distance", Arc::new(Float64Array::from(dist))),
         ("w", Arc::new(Float64Array::from(w))),
         ("late", Arc::new(Int64Array::from(late))),
@@ -580,4 +598,82 @@ fn wide_checkpoints_are_spaced_out_and_a_resume_ends_identically() {
         "the hashed weights differ"
     );
     args.clear();
+}
+
+#[test]
+fn a_pair_of_list_columns_is_the_same_sparse_vector() {
+    let (dir, data) = data_dir(3000);
+    let (structs, _) = fit(dir.path(), "structs", &data, LOGISTIC, &["--no-cache"]);
+    let mut pair = LOGISTIC.to_vec();
+    let at = pair.iter().position(|s| *s == "basket:16").unwrap();
+    pair[at] = "basket_ids,basket_values:16";
+    let (pairs, s) = fit(dir.path(), "pairs", &data, &pair, &[]);
+    assert_eq!(s["cache"]["mode"], "cache");
+    assert_eq!(fitted(&structs), fitted(&pairs));
+    let m = pairs.model();
+    assert!(
+        m.to_string().contains("basket_values"),
+        "the model names the values column"
+    );
+    // predict reads the pair form back from the model: the margins of both models agree.
+    let margins = |model: &Path, name: &str| {
+        let out = dir.path().join(name);
+        common::predict(model, &[&data], &out, &[]);
+        common::read_column_f64(&out, "margin")
+    };
+    let a = margins(&structs.model_path, "structs.parquet");
+    let b = margins(&pairs.model_path, "pairs.parquet");
+    assert_eq!(a.len(), 3000);
+    assert_eq!(
+        a.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+        b.iter().map(|v| v.to_bits()).collect::<Vec<_>>()
+    );
+}
+
+/// Hashed features only: the blocks have no dense part and more rows than one tile.
+#[test]
+fn a_design_of_hashed_features_only_reads_the_cache() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let data = dir.path().join("hashed_only.parquet");
+    let mut u = Mix(5);
+    let n = 5000;
+    let zone: Vec<String> = (0..n).map(|_| format!("z{}", u.below(30))).collect();
+    let store: Vec<i64> = (0..n).map(|_| u.below(200) as i64).collect();
+    let late: Vec<i64> = (0..n)
+        .map(|i| i64::from(u.next() < 0.3 + 0.01 * (store[i] % 40) as f64))
+        .collect();
+    let columns: Vec<(&str, ArrayRef)> = vec![
+        ("zone", Arc::new(StringArray::from(zone))),
+        ("store", Arc::new(Int64Array::from(store))),
+        ("late", Arc::new(Int64Array::from(late))),
+    ];
+    let schema = Arc::new(Schema::new(
+        columns
+            .iter()
+            .map(|(n, a)| Field::new(*n, a.data_type().clone(), false))
+            .collect::<Vec<_>>(),
+    ));
+    let batch = RecordBatch::try_new(
+        schema.clone(),
+        columns.into_iter().map(|(_, a)| a).collect(),
+    )
+    .expect("batch");
+    write_parquet(&data, schema, &[batch], 5000);
+    let args = [
+        "--target",
+        "late",
+        "--categorical",
+        "zone,store",
+        "--cross",
+        "zone*store",
+        "--hash-bits",
+        "12",
+        "--ridge",
+        "1e-3",
+    ];
+    let (cached, s) = fit(dir.path(), "cached", &data, &args, &[]);
+    let (plain, _) = fit(dir.path(), "plain", &data, &args, &["--no-cache"]);
+    assert_eq!(s["cache"]["mode"], "cache");
+    assert_eq!(fitted(&cached), fitted(&plain));
+    assert_eq!(cached.model()["coefficients"], serde_json::json!({}));
 }

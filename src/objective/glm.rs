@@ -903,7 +903,8 @@ fn accumulate(
         };
         let tile = Tile {
             rows,
-            cols: &block.x[r0..],
+            // No dense features: `x` is empty (width 0, no column is read).
+            cols: block.x.get(r0..).unwrap_or(&[]),
             stride: n,
             y: &block.y[r0..r0 + rows],
             w: if block.w.is_empty() {
