@@ -573,10 +573,13 @@ impl Session {
         if control.checkpoint_dir.is_none() {
             return Ok(());
         }
+        let state = optimizer.state();
+        let vectors = 2 + state.s.len() + state.y.len();
+        let bytes = (vectors * state.x.len() * 8) as u64;
         let due = self
             .pacer
             .lock()
-            .map(|p| p.due(Instant::now()))
+            .map(|p| p.due(Instant::now(), bytes))
             .unwrap_or(true);
         if due {
             return self.save_checkpoint(control, optimizer, passes);
