@@ -1043,6 +1043,37 @@ impl<'a> BlockView<'a> {
     }
 }
 
+/// Removes the cache files in `dir` of another binary version (`blocks-*.ocache` with
+/// our magic and another version in the header: a format change names caches anew, so
+/// the old file would stay behind, as large as the data). Best effort; returns the files
+/// removed.
+pub fn remove_other_versions(dir: &Path) -> Vec<PathBuf> {
+    let Ok(entries) = fs::read_dir(dir) else {
+        return Vec::new();
+    };
+    let mut removed = Vec::new();
+    for e in entries.flatten() {
+        let path = e.path();
+        let named = path
+            .file_name()
+            .and_then(|n| n.to_str())
+            .is_some_and(|n| n.starts_with("blocks-") && n.ends_with(&format!(".{EXTENSION}")));
+        if !named {
+            continue;
+        }
+        let mut head = [0u8; 20];
+        let read = File::open(&path).and_then(|f| f.read_exact_at(&mut head, 0));
+        if read.is_ok()
+            && &head[..16] == MAGIC
+            && u32_at(&head, 16) != VERSION
+            && fs::remove_file(&path).is_ok()
+        {
+            removed.push(path);
+        }
+    }
+    removed
+}
+
 /// Removes a cache file that cannot be used (best effort).
 pub fn remove(path: &Path) {
     let _ = fs::remove_file(path);
@@ -1116,6 +1147,15 @@ impl CacheSlot {
                     CacheState::Ready(cache)
                 }
                 Opened::Missing => {
+                    for old in remove_other_versions(dir) {
+                        slot.note(
+                            false,
+                            format!(
+                                "removed the block cache {} of an older format",
+                                old.display()
+                            ),
+                        );
+                    }
                     slot.note(
                         false,
                         format!(

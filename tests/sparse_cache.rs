@@ -677,3 +677,27 @@ fn a_design_of_hashed_features_only_reads_the_cache() {
     assert_eq!(fitted(&cached), fitted(&plain));
     assert_eq!(cached.model()["coefficients"], serde_json::json!({}));
 }
+
+/// A cache of an older format (another version in its header, under another name, as a
+/// format change names caches anew) is removed when the new one is built; other files
+/// are left alone.
+#[test]
+fn a_cache_of_an_older_format_is_removed() {
+    let (dir, data) = data_dir(2000);
+    let (first, _) = fit(dir.path(), "m", &data, LOGISTIC, &[]);
+    let run = dir.path().join("m.run");
+    let current = cache_files(&run).remove(0);
+    let mut bytes = std::fs::read(&current).unwrap();
+    bytes[16..20].copy_from_slice(&1u32.to_le_bytes());
+    let old = run.join("blocks-0123456789abcdef.ocache");
+    std::fs::write(&old, &bytes).unwrap();
+    std::fs::remove_file(&current).unwrap();
+    let stranger = run.join("blocks-notours.ocache");
+    std::fs::write(&stranger, b"not a block cache").unwrap();
+    let (again, s) = fit(dir.path(), "m", &data, LOGISTIC, &[]);
+    assert_eq!(s["cache"]["mode"], "cache");
+    assert!(!old.exists(), "the old-format cache is still there");
+    assert!(stranger.exists());
+    assert!(current.exists());
+    assert_eq!(fitted(&first), fitted(&again));
+}
