@@ -8,9 +8,11 @@
 #   SCALE=small benches/sparse.sh     # 400k rows, 2^18 buckets, scipy on 200k rows
 #
 # Knobs: ROWS, SCIPY_ROWS, BITS, RIDGE, HISTORY, THREADS, DIR (data; deleted at the end
-# unless KEEP=1). Needs python3 with numpy, scipy, pyarrow and xxhash. Peak memory is
-# "Maximum resident set size" of /usr/bin/time -v (anonymous memory dominates: the
-# data are read through buffered file reads, not mapped).
+# unless KEEP=1). Needs python3 with numpy, scipy, pyarrow and xxhash. Peak memory:
+# "Maximum resident set size" of /usr/bin/time -v (it counts the mapped block-cache pages,
+# which the kernel can drop) and the peak anonymous memory the fit reports in --json
+# (what the fit itself holds). Each run writes its run directory (checkpoints, block
+# cache) beside its model in DIR.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 if [ "${SCALE:-full}" = small ]; then
@@ -47,9 +49,13 @@ m = json.load(open(base + ".json"))
 f = m["fit"]
 rss = int(re.search(r"Maximum resident set size \(kbytes\): (\d+)", t).group(1))
 wall = re.search(r"Elapsed \(wall clock\) time.*: (.*)", t).group(1)
+out = json.loads(open(base + ".out").read())
+anon = (out.get("memory") or {}).get("peak_anonymous_bytes") or 0
+cache = (out.get("cache") or {}).get("mode", "?")
 json.dump({"rows": f["rows"], "stop": f["stop"], "passes": f["passes"], "seconds": f["seconds"],
            "seconds_per_pass": f["seconds"] / f["passes"], "objective": f["objective"],
-           "peak_rss_mb": rss / 1024, "wall": wall, "nonzero": m["hashed"]["nonzero"],
+           "peak_rss_mb": rss / 1024, "peak_anon_mb": anon / 2**20, "cache": cache,
+           "wall": wall, "nonzero": m["hashed"]["nonzero"],
            "uptime_load": load}, open(base + ".summary", "w"))
 PY
 }
@@ -69,15 +75,15 @@ sc = json.loads(open(d + "/scipy.out").read().strip().splitlines()[-1])
 t = open(d + "/scipy.time").read()
 sc_rss = int(re.search(r"Maximum resident set size \(kbytes\): (\d+)", t).group(1)) / 1024
 print(f"sparse benchmark: 2^{bits} buckets, ridge {ridge}, tol 1e-6, history {history}, {threads} threads")
-print(f"| run | rows | stop | passes | s/pass | seconds | objective | peak RSS MB | load (1/5/15 min) |")
-print(f"|---|---|---|---|---|---|---|---|---|")
+print(f"| run | rows | stop | passes | s/pass | seconds | objective | peak RSS MB | peak anonymous MB | load (1/5/15 min) |")
+print(f"|---|---|---|---|---|---|---|---|---|---|")
 for name, r in [("outcore, all rows", full), ("outcore, side by side", side)]:
-    print(f"| {name} | {r['rows']} | {r['stop']} | {r['passes']} | {r['seconds_per_pass']:.2f} | "
-          f"{r['seconds']:.1f} | {r['objective']:.10f} | {r['peak_rss_mb']:.0f} | {r['uptime_load']} |")
+    print(f"| {name} ({r['cache']}) | {r['rows']} | {r['stop']} | {r['passes']} | {r['seconds_per_pass']:.3f} | "
+          f"{r['seconds']:.1f} | {r['objective']:.10f} | {r['peak_rss_mb']:.0f} | {r['peak_anon_mb']:.0f} | {r['uptime_load']} |")
 total = sc["seconds_build"] + sc["seconds_fit"]
 print(f"| scipy L-BFGS-B, side by side | {sc['rows']} | {sc['message'][:30]} | {sc['evaluations']} evals | "
-      f"{sc['seconds_fit'] / max(1, sc['evaluations']):.2f} | {sc['seconds_fit']:.1f} fit + {sc['seconds_build']:.1f} build | "
-      f"{sc['objective']:.10f} | {sc_rss:.0f} | {load} |")
+      f"{sc['seconds_fit'] / max(1, sc['evaluations']):.3f} | {sc['seconds_fit']:.1f} fit + {sc['seconds_build']:.1f} build | "
+      f"{sc['objective']:.10f} | {sc_rss:.0f} | | {load} |")
 rel = abs(side["objective"] - sc["objective"]) / abs(sc["objective"])
 print(f"wall ratio outcore / scipy (fit only): {side['seconds'] / sc['seconds_fit']:.2f}; "
       f"(scipy build + fit): {side['seconds'] / total:.2f}; objective relative difference {rel:.2e}")

@@ -2,7 +2,7 @@
 //! `memmap2` on every later pass, so that a pass costs a sweep over memory (or the disk)
 //! instead of a Parquet decode.
 //!
-//! # File layout (`outcore-blocks/1`, little-endian)
+//! # File layout (`outcore-blocks/2`, little-endian)
 //!
 //! ```text
 //! 0    header (64 bytes): magic "OUTCORE-BLOCKS\0\0", version u32, 0 u32,
@@ -25,15 +25,25 @@
 //! ```
 //!
 //! Section kinds ([`Kind`]): labels, weights, holdout flags, one dense column per
-//! source feature column (`column` = its index in [`CacheKey::columns`]). A sparse
-//! (CSR) part is meant to be three more kinds (row offsets, column indices, values);
-//! a reader that meets a kind it does not know treats the file as of another version.
-//! Encodings ([`Encoding`]): `f64`, `f32` (chosen per block and column when every value
-//! is exactly an `f32`: float32 columns, small integers, booleans, 0/1 labels), and
-//! `u8` (flags). Dense values are the feature values as read (before imputation and
-//! scaling; NaN where null), so a block decoded from the cache and standardized is
-//! bitwise the block built from Parquet: `float64` data stay `f64` (DESIGN §3) unless
-//! `--precision f32` rounded them knowingly.
+//! dense source column (`column` = its index in [`CacheKey::columns`]), and the block's
+//! sparse (CSR) part as three sections: row offsets (`rows + 1` values), coordinate
+//! indices and values (one per entry). A reader that meets a kind it does not know
+//! treats the block as damaged. Encodings ([`Encoding`]): `f64`, `f32` (chosen per block
+//! and column when every value is exactly an `f32`: float32 columns, small integers,
+//! booleans, 0/1 labels, most sparse values), `u8` (flags), `u32` and `u64` (offsets,
+//! `u32` when the block's last offset fits; indices), `signs` (sparse values that are
+//! all ±1, the hashed case: one bit per entry, set for −1) and `ones` (sparse values
+//! that are all 1: no bytes at all). Dense values are the feature values as read (before
+//! imputation and scaling; NaN where null), and sparse values are stored exactly, so a
+//! block decoded from the cache and standardized is bitwise the block built from
+//! Parquet: `float64` data stay `f64` (DESIGN §3) unless `--precision f32` rounded them
+//! knowingly.
+//!
+//! A block's CSR part is checked when it is decoded ([`decode_sparse`]): offsets start
+//! at 0, never decrease and end at the number of entries, and every index is below the
+//! sparse width of the fit's layout. The key holds the sparse request (hash bits,
+//! hashed columns, crosses, sparse vector columns and their dimensions), so a cache
+//! built with other hashing is stale, never misread.
 //!
 //! **Invariant:** a cache is only used when its key equals the key of the fit (data
 //! fingerprint, block grid, columns, target reading, holdout, precision); anything
@@ -56,15 +66,17 @@ use memmap2::Mmap;
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
+use crate::features::hashing::SparseRequest;
+use crate::features::sparse::SparseRows;
 use crate::features::{Block, Design};
 use crate::objective::Loss;
 use crate::source::Source;
 use crate::{Error, Result};
 
 /// Format name in the key.
-pub const FORMAT: &str = "outcore-blocks/1";
-/// Binary version in the header.
-pub const VERSION: u32 = 1;
+pub const FORMAT: &str = "outcore-blocks/2";
+/// Binary version in the header (2: CSR sections and their encodings).
+pub const VERSION: u32 = 2;
 const MAGIC: &[u8; 16] = b"OUTCORE-BLOCKS\0\0";
 const HEADER: u64 = 64;
 const ALIGN: u64 = 64;
@@ -85,6 +97,27 @@ pub enum Kind {
     Holdout = 3,
     /// One dense source column, values as read (NaN where null).
     Dense = 4,
+    /// CSR row offsets: `rows + 1` values, from 0 to the number of entries.
+    SparseOffsets = 5,
+    /// CSR coordinate index of each entry (below the layout's sparse width).
+    SparseIndex = 6,
+    /// CSR value of each entry.
+    SparseValues = 7,
+}
+
+impl Kind {
+    fn from_u16(v: u16) -> Option<Kind> {
+        Some(match v {
+            1 => Kind::Label,
+            2 => Kind::Weight,
+            3 => Kind::Holdout,
+            4 => Kind::Dense,
+            5 => Kind::SparseOffsets,
+            6 => Kind::SparseIndex,
+            7 => Kind::SparseValues,
+            _ => return None,
+        })
+    }
 }
 
 /// How a section's values are stored.
@@ -97,6 +130,14 @@ pub enum Encoding {
     F32 = 2,
     /// One byte per row.
     U8 = 3,
+    /// Little-endian `u32`.
+    U32 = 4,
+    /// Little-endian `u64`.
+    U64 = 5,
+    /// Values that are all ±1: one bit per value (bit `i % 8` of byte `i / 8`), set for −1.
+    Signs = 6,
+    /// Values that are all 1: no bytes.
+    Ones = 7,
 }
 
 impl Encoding {
@@ -105,7 +146,22 @@ impl Encoding {
             1 => Some(Encoding::F64),
             2 => Some(Encoding::F32),
             3 => Some(Encoding::U8),
+            4 => Some(Encoding::U32),
+            5 => Some(Encoding::U64),
+            6 => Some(Encoding::Signs),
+            7 => Some(Encoding::Ones),
             _ => None,
+        }
+    }
+
+    /// Bytes of `count` values.
+    fn bytes(self, count: usize) -> usize {
+        match self {
+            Encoding::F64 | Encoding::U64 => count * 8,
+            Encoding::F32 | Encoding::U32 => count * 4,
+            Encoding::U8 => count,
+            Encoding::Signs => count.div_ceil(8),
+            Encoding::Ones => 0,
         }
     }
 }
@@ -135,8 +191,13 @@ pub struct CacheKey {
     pub classes: Vec<String>,
     /// Weight column.
     pub weight: Option<String>,
-    /// Dense source columns, in section order.
+    /// Source columns of the features: the dense ones in section order, then those
+    /// read by the sparse part.
     pub columns: Vec<String>,
+    /// Hashed and sparse vector features (hash bits, columns, crosses, vector columns
+    /// and dimensions); none for a dense design.
+    #[serde(default)]
+    pub sparse: Option<SparseRequest>,
     /// Rows with a null target are left out.
     pub skip_missing_target: bool,
     /// The holdout split (fraction and key), when rows are held out.
@@ -171,6 +232,7 @@ impl CacheKey {
             classes: design.classes.clone(),
             weight: design.weight.clone(),
             columns: design.feature_columns().to_vec(),
+            sparse: design.sparse.as_ref().map(|s| s.request.clone()),
             skip_missing_target: design.skip_missing_target,
             holdout,
             precision: if design.rounds_to_f32() {
@@ -207,6 +269,8 @@ impl CacheKey {
             "another block grid"
         } else if self.columns != other.columns || self.weight != other.weight {
             "other columns"
+        } else if self.sparse != other.sparse {
+            "other hashing or sparse vector settings"
         } else {
             "other target, holdout or precision settings"
         }
@@ -267,33 +331,42 @@ fn pad_to(v: u64, align: u64) -> u64 {
     v.div_ceil(align) * align
 }
 
-/// Encodes a block into `out` (cleared first): labels, weights, holdout flags and the
+/// Encodes a block into `out` (cleared first): labels, weights, holdout flags, the
 /// dense columns of `raw` (as filled by [`Design::build_block_raw`], `columns` runs of
-/// `block.rows` values).
+/// `block.rows` values, one per dense source column) and the block's CSR part.
 pub fn encode_block(block: &Block, raw: &[f64], columns: usize, out: &mut Vec<u8>) {
     let n = block.rows;
+    debug_assert!(
+        raw.len() >= columns * n,
+        "fewer raw values than dense columns"
+    );
     out.clear();
-    let mut sections: Vec<(Kind, Encoding, u32)> = Vec::with_capacity(columns + 3);
-    sections.push((Kind::Label, narrowest(&block.y), 0));
+    // (kind, encoding, column, bytes)
+    let mut sections: Vec<(Kind, Encoding, u32, usize)> = Vec::with_capacity(columns + 6);
+    let plain = |kind, enc: Encoding, col| (kind, enc, col, enc.bytes(n));
+    sections.push(plain(Kind::Label, narrowest(&block.y), 0));
     if !block.w.is_empty() {
-        sections.push((Kind::Weight, narrowest(&block.w), 0));
+        sections.push(plain(Kind::Weight, narrowest(&block.w), 0));
     }
     if !block.holdout.is_empty() {
-        sections.push((Kind::Holdout, Encoding::U8, 0));
+        sections.push(plain(Kind::Holdout, Encoding::U8, 0));
     }
     for c in 0..columns {
-        sections.push((Kind::Dense, narrowest(&raw[c * n..(c + 1) * n]), c as u32));
+        sections.push(plain(
+            Kind::Dense,
+            narrowest(&raw[c * n..(c + 1) * n]),
+            c as u32,
+        ));
+    }
+    if !block.sparse.is_empty() {
+        sections.extend(sparse_sections(&block.sparse));
     }
     let table = pad_to((8 + SECTION * sections.len()) as u64, ALIGN);
     out.extend_from_slice(&(sections.len() as u32).to_le_bytes());
     out.extend_from_slice(&(n as u32).to_le_bytes());
     let mut at = table;
-    for (kind, enc, col) in &sections {
-        let len = (n * match enc {
-            Encoding::F64 => 8,
-            Encoding::F32 => 4,
-            Encoding::U8 => 1,
-        }) as u64;
+    for (kind, enc, col, len) in &sections {
+        let len = *len as u64;
         out.extend_from_slice(&(*kind as u16).to_le_bytes());
         out.extend_from_slice(&(*enc as u16).to_le_bytes());
         out.extend_from_slice(&col.to_le_bytes());
@@ -301,7 +374,7 @@ pub fn encode_block(block: &Block, raw: &[f64], columns: usize, out: &mut Vec<u8
         out.extend_from_slice(&len.to_le_bytes());
         at = pad_to(at + len, ALIGN);
     }
-    for (kind, enc, col) in &sections {
+    for (kind, enc, col, _) in &sections {
         out.resize(pad_to(out.len() as u64, ALIGN) as usize, 0);
         let values: &[f64] = match kind {
             Kind::Label => &block.y,
@@ -311,17 +384,183 @@ pub fn encode_block(block: &Block, raw: &[f64], columns: usize, out: &mut Vec<u8
                 continue;
             }
             Kind::Dense => &raw[*col as usize * n..(*col as usize + 1) * n],
+            Kind::SparseOffsets | Kind::SparseIndex | Kind::SparseValues => {
+                encode_sparse(&block.sparse, *kind, *enc, out);
+                continue;
+            }
         };
-        match enc {
-            Encoding::F64 => values
-                .iter()
-                .for_each(|v| out.extend_from_slice(&v.to_le_bytes())),
-            Encoding::F32 => values
-                .iter()
-                .for_each(|v| out.extend_from_slice(&(*v as f32).to_le_bytes())),
-            Encoding::U8 => {}
-        }
+        put_floats(values, *enc, out);
     }
+}
+
+/// Appends `values` as `f64` or `f32` (exact: chosen by [`narrowest`]).
+fn put_floats(values: &[f64], enc: Encoding, out: &mut Vec<u8>) {
+    match enc {
+        Encoding::F64 => values
+            .iter()
+            .for_each(|v| out.extend_from_slice(&v.to_le_bytes())),
+        Encoding::F32 => values
+            .iter()
+            .for_each(|v| out.extend_from_slice(&(*v as f32).to_le_bytes())),
+        _ => {}
+    }
+}
+
+/// The three CSR sections of `rows` with their encodings and sizes: offsets as `u32`
+/// when the last fits (else `u64`), indices as `u32`, values as `ones`, `signs`, `f32`
+/// or `f64`, the narrowest that holds every value exactly.
+fn sparse_sections(rows: &SparseRows) -> [(Kind, Encoding, u32, usize); 3] {
+    let entries = rows.index.len();
+    let last = rows.offsets.last().copied().unwrap_or(0);
+    let offsets = if last <= u32::MAX as u64 {
+        Encoding::U32
+    } else {
+        Encoding::U64
+    };
+    let one = 1.0f64.to_bits();
+    let minus_one = (-1.0f64).to_bits();
+    let values = if rows.value.iter().all(|v| v.to_bits() == one) {
+        Encoding::Ones
+    } else if rows
+        .value
+        .iter()
+        .all(|v| v.to_bits() == one || v.to_bits() == minus_one)
+    {
+        Encoding::Signs
+    } else {
+        narrowest(&rows.value)
+    };
+    [
+        (
+            Kind::SparseOffsets,
+            offsets,
+            0,
+            offsets.bytes(rows.offsets.len()),
+        ),
+        (Kind::SparseIndex, Encoding::U32, 0, entries * 4),
+        (Kind::SparseValues, values, 0, values.bytes(entries)),
+    ]
+}
+
+/// Appends the data of one CSR section of `rows` (`kind` and `enc` as chosen by
+/// [`sparse_sections`]).
+fn encode_sparse(rows: &SparseRows, kind: Kind, enc: Encoding, out: &mut Vec<u8>) {
+    match (kind, enc) {
+        (Kind::SparseOffsets, Encoding::U32) => rows
+            .offsets
+            .iter()
+            .for_each(|o| out.extend_from_slice(&(*o as u32).to_le_bytes())),
+        (Kind::SparseOffsets, _) => rows
+            .offsets
+            .iter()
+            .for_each(|o| out.extend_from_slice(&o.to_le_bytes())),
+        (Kind::SparseIndex, _) => rows
+            .index
+            .iter()
+            .for_each(|i| out.extend_from_slice(&i.to_le_bytes())),
+        (_, Encoding::Signs) => {
+            for chunk in rows.value.chunks(8) {
+                let mut byte = 0u8;
+                for (b, v) in chunk.iter().enumerate() {
+                    if v.is_sign_negative() {
+                        byte |= 1 << b;
+                    }
+                }
+                out.push(byte);
+            }
+        }
+        (_, Encoding::Ones) => {}
+        (_, enc) => put_floats(&rows.value, enc, out),
+    }
+}
+
+/// Decodes the CSR part of a cached block into `out` (cleared first, its capacity
+/// reused), checking it: offsets start at 0, never decrease and end at the number of
+/// entries, and every index is below `width` (the sparse width of the fit's layout).
+/// Returns false when the block has no CSR part (a dense design, or no rows), and why
+/// the part is damaged otherwise.
+pub fn decode_sparse(
+    view: &BlockView<'_>,
+    width: usize,
+    out: &mut SparseRows,
+) -> std::result::Result<bool, String> {
+    out.clear();
+    let find = |kind| view.raw_section(kind);
+    let (offsets, index, values) = match (
+        find(Kind::SparseOffsets),
+        find(Kind::SparseIndex),
+        find(Kind::SparseValues),
+    ) {
+        (None, None, None) => return Ok(false),
+        (Some(o), Some(i), Some(v)) => (o, i, v),
+        _ => return Err("lacks one of its sparse sections".to_string()),
+    };
+    let rows = view.rows;
+    let entries = index.1.len() / 4;
+    if index.0 != Encoding::U32
+        || index.1.len() % 4 != 0
+        || offsets.1.len() != offsets.0.bytes(rows + 1)
+        || !matches!(offsets.0, Encoding::U32 | Encoding::U64)
+        || values.1.len() != values.0.bytes(entries)
+        || matches!(values.0, Encoding::U8 | Encoding::U32 | Encoding::U64)
+    {
+        return Err("is damaged (a sparse section has the wrong size or encoding)".to_string());
+    }
+    out.offsets.reserve(rows + 1);
+    match offsets.0 {
+        Encoding::U32 => out.offsets.extend(
+            offsets
+                .1
+                .chunks_exact(4)
+                .map(|c| u32::from_le_bytes([c[0], c[1], c[2], c[3]]) as u64),
+        ),
+        _ => out
+            .offsets
+            .extend(offsets.1.chunks_exact(8).map(|c| u64_at(c, 0))),
+    }
+    let monotone = out.offsets.windows(2).all(|w| w[0] <= w[1]);
+    if out.offsets.first() != Some(&0) || !monotone || out.offsets.last() != Some(&(entries as u64))
+    {
+        out.clear();
+        return Err("is damaged (its sparse row offsets are out of order)".to_string());
+    }
+    out.index.reserve(entries);
+    out.index.extend(
+        index
+            .1
+            .chunks_exact(4)
+            .map(|c| u32::from_le_bytes([c[0], c[1], c[2], c[3]])),
+    );
+    if out.index.iter().any(|i| *i as usize >= width) {
+        out.clear();
+        return Err(format!(
+            "is damaged (a sparse index is not below the sparse width {width})"
+        ));
+    }
+    out.value.reserve(entries);
+    match values.0 {
+        Encoding::Ones => out.value.resize(entries, 1.0),
+        Encoding::Signs => out.value.extend((0..entries).map(|k| {
+            if values.1[k / 8] >> (k % 8) & 1 == 1 {
+                -1.0
+            } else {
+                1.0
+            }
+        })),
+        Encoding::F32 => out.value.extend(
+            values
+                .1
+                .chunks_exact(4)
+                .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]) as f64),
+        ),
+        _ => out.value.extend(
+            values
+                .1
+                .chunks_exact(8)
+                .map(|c| f64::from_bits(u64_at(c, 0))),
+        ),
+    }
+    Ok(true)
 }
 
 /// `f32` when every value is exactly an `f32` (NaN, a null, included), else `f64`.
@@ -757,20 +996,23 @@ impl<'a> BlockView<'a> {
         }
         for s in 0..count {
             let at = 8 + s * SECTION;
-            let kind = u16_at(self.bytes, at);
-            let enc = Encoding::from_u16(u16_at(self.bytes, at + 2));
+            let Some(kind) = Kind::from_u16(u16_at(self.bytes, at)) else {
+                return Err("has a section of an unknown kind".to_string());
+            };
+            let Some(enc) = Encoding::from_u16(u16_at(self.bytes, at + 2)) else {
+                return Err("has a section of an unknown encoding".to_string());
+            };
             let offset = u64_at(self.bytes, at + 8);
             let len = u64_at(self.bytes, at + 16);
-            let width = match enc {
-                Some(Encoding::F64) => 8,
-                Some(Encoding::F32) => 4,
-                Some(Encoding::U8) => 1,
-                None => return Err("has a section of an unknown encoding".to_string()),
-            };
-            if !(1..=4).contains(&kind) {
-                return Err("has a section of an unknown kind".to_string());
+            let per_row = matches!(
+                kind,
+                Kind::Label | Kind::Weight | Kind::Holdout | Kind::Dense
+            );
+            if per_row && !matches!(enc, Encoding::F64 | Encoding::F32 | Encoding::U8) {
+                return Err("has a section of an unknown encoding".to_string());
             }
-            if len != (self.rows * width) as u64
+            // The CSR sections' sizes are checked by `decode_sparse`.
+            if (per_row && len != enc.bytes(self.rows) as u64)
                 || offset
                     .checked_add(len)
                     .is_none_or(|e| e > self.bytes.len() as u64)
@@ -779,6 +1021,21 @@ impl<'a> BlockView<'a> {
             }
         }
         Ok(())
+    }
+
+    /// Encoding and bytes of the first section of `kind`.
+    fn raw_section(&self, kind: Kind) -> Option<(Encoding, &'a [u8])> {
+        for s in 0..self.sections() {
+            let at = 8 + s * SECTION;
+            if u16_at(self.bytes, at) != kind as u16 {
+                continue;
+            }
+            let offset = u64_at(self.bytes, at + 8) as usize;
+            let len = u64_at(self.bytes, at + 16) as usize;
+            let enc = Encoding::from_u16(u16_at(self.bytes, at + 2))?;
+            return Some((enc, &self.bytes[offset..offset + len]));
+        }
+        None
     }
 
     /// The section of `kind` (and `column`, for dense columns), if the block has it.
@@ -795,7 +1052,7 @@ impl<'a> BlockView<'a> {
                 Some(Encoding::F64) => Some(Values::F64(data)),
                 Some(Encoding::F32) => Some(Values::F32(data)),
                 Some(Encoding::U8) => Some(Values::U8(data)),
-                None => None,
+                _ => None,
             };
         }
         None
@@ -810,6 +1067,37 @@ impl<'a> BlockView<'a> {
     pub fn is_empty(&self) -> bool {
         self.bytes.is_empty()
     }
+}
+
+/// Removes the cache files in `dir` of another binary version (`blocks-*.ocache` with
+/// our magic and another version in the header: a format change names caches anew, so
+/// the old file would stay behind, as large as the data). Best effort; returns the files
+/// removed.
+pub fn remove_other_versions(dir: &Path) -> Vec<PathBuf> {
+    let Ok(entries) = fs::read_dir(dir) else {
+        return Vec::new();
+    };
+    let mut removed = Vec::new();
+    for e in entries.flatten() {
+        let path = e.path();
+        let named = path
+            .file_name()
+            .and_then(|n| n.to_str())
+            .is_some_and(|n| n.starts_with("blocks-") && n.ends_with(&format!(".{EXTENSION}")));
+        if !named {
+            continue;
+        }
+        let mut head = [0u8; 20];
+        let read = File::open(&path).and_then(|f| f.read_exact_at(&mut head, 0));
+        if read.is_ok()
+            && &head[..16] == MAGIC
+            && u32_at(&head, 16) != VERSION
+            && fs::remove_file(&path).is_ok()
+        {
+            removed.push(path);
+        }
+    }
+    removed
 }
 
 /// Removes a cache file that cannot be used (best effort).
@@ -885,6 +1173,15 @@ impl CacheSlot {
                     CacheState::Ready(cache)
                 }
                 Opened::Missing => {
+                    for old in remove_other_versions(dir) {
+                        slot.note(
+                            false,
+                            format!(
+                                "removed the block cache {} of an older format",
+                                old.display()
+                            ),
+                        );
+                    }
                     slot.note(
                         false,
                         format!(
@@ -1035,5 +1332,177 @@ mod tests {
             [0.1f64, 1e300, 3.0].map(f64::to_bits)
         );
         assert!(view.section(Kind::Dense, 2).is_none());
+    }
+
+    fn sparse_block(values: &[f64]) -> Block {
+        let mut rows = SparseRows::default();
+        // Three rows: two entries, none, the rest.
+        let index = [3u32, 0, 7, 7, 1, 6, 2, 5, 4, 0];
+        let k = values.len().min(index.len());
+        rows.push_row(index[..2].iter().copied().zip(values[..2].iter().copied()));
+        rows.push_row(std::iter::empty());
+        rows.push_row(
+            index[2..k]
+                .iter()
+                .copied()
+                .zip(values[2..k].iter().copied()),
+        );
+        Block {
+            sparse: rows,
+            rows: 3,
+            x: vec![],
+            y: vec![0.0, 1.0, 1.0],
+            w: vec![],
+            file: 0,
+            first_row: 0,
+            holdout: vec![],
+        }
+    }
+
+    fn view_of(out: &[u8]) -> BlockView<'_> {
+        BlockView {
+            bytes: out,
+            rows: 3,
+            file: 0,
+            first_row: 0,
+        }
+    }
+
+    #[test]
+    fn csr_sections_round_trip_bitwise_in_the_narrowest_encoding() {
+        let cases: [(Vec<f64>, Encoding, usize); 4] = [
+            (vec![1.0; 10], Encoding::Ones, 0),
+            (
+                vec![1.0, -1.0, -1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, -1.0],
+                Encoding::Signs,
+                2,
+            ),
+            (
+                vec![0.5, -2.0, 3.25, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0],
+                Encoding::F32,
+                40,
+            ),
+            (
+                vec![0.1, -2.0, 3.25, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0],
+                Encoding::F64,
+                80,
+            ),
+        ];
+        let mut back = SparseRows::default();
+        for (values, enc, bytes) in cases {
+            let b = sparse_block(&values);
+            let mut out = Vec::new();
+            encode_block(&b, &[], 0, &mut out);
+            let view = view_of(&out);
+            view.validate().unwrap();
+            let (e, data) = view.raw_section(Kind::SparseValues).unwrap();
+            assert_eq!((e, data.len()), (enc, bytes), "{values:?}");
+            assert_eq!(
+                view.raw_section(Kind::SparseOffsets).unwrap().0,
+                Encoding::U32
+            );
+            assert!(decode_sparse(&view, 8, &mut back).unwrap());
+            assert_eq!(back.offsets, b.sparse.offsets);
+            assert_eq!(back.index, b.sparse.index);
+            assert_eq!(
+                back.value.iter().map(|v| v.to_bits()).collect::<Vec<_>>(),
+                b.sparse
+                    .value
+                    .iter()
+                    .map(|v| v.to_bits())
+                    .collect::<Vec<_>>()
+            );
+        }
+        // A dense block has no CSR part.
+        let (dense, raw) = block();
+        let mut out = Vec::new();
+        encode_block(&dense, &raw, 2, &mut out);
+        let view = BlockView {
+            bytes: &out,
+            rows: 3,
+            file: 2,
+            first_row: 16,
+        };
+        assert!(!decode_sparse(&view, 8, &mut back).unwrap());
+        assert!(back.is_empty());
+    }
+
+    /// Overwrites `u32` number `at` of the section of `kind` in an encoded block.
+    fn poke(out: &mut [u8], kind: Kind, at: usize, value: u32) {
+        let count = u32_at(out, 0) as usize;
+        for s in 0..count {
+            let t = 8 + s * SECTION;
+            if u16_at(out, t) == kind as u16 {
+                let offset = u64_at(out, t + 8) as usize + at * 4;
+                out[offset..offset + 4].copy_from_slice(&value.to_le_bytes());
+                return;
+            }
+        }
+        panic!("no section {kind:?}");
+    }
+
+    #[test]
+    fn damaged_csr_sections_are_refused_with_the_reason() {
+        let b = sparse_block(&[1.0; 10]);
+        let mut good = Vec::new();
+        encode_block(&b, &[], 0, &mut good);
+        let mut rows = SparseRows::default();
+        // The width of the layout: index 7 is not below 7.
+        let why = decode_sparse(&view_of(&good), 7, &mut rows).unwrap_err();
+        assert!(why.contains("sparse index"), "{why}");
+        assert!(rows.is_empty());
+        // Offsets out of order: row 1 ends before it starts.
+        let mut bad = good.clone();
+        poke(&mut bad, Kind::SparseOffsets, 2, 1);
+        let why = decode_sparse(&view_of(&bad), 8, &mut rows).unwrap_err();
+        assert!(why.contains("offsets"), "{why}");
+        // A last offset that is not the number of entries.
+        let mut bad = good.clone();
+        poke(&mut bad, Kind::SparseOffsets, 3, 9);
+        assert!(decode_sparse(&view_of(&bad), 8, &mut rows).is_err());
+        // A first offset other than 0.
+        let mut bad = good.clone();
+        poke(&mut bad, Kind::SparseOffsets, 0, 1);
+        assert!(decode_sparse(&view_of(&bad), 8, &mut rows).is_err());
+        // An index far out of range.
+        let mut bad = good.clone();
+        poke(&mut bad, Kind::SparseIndex, 4, u32::MAX);
+        assert!(decode_sparse(&view_of(&bad), 8, &mut rows).is_err());
+        // A section kind this reader does not know.
+        let mut bad = good.clone();
+        let last = 8 + (u32_at(&bad, 0) as usize - 1) * SECTION;
+        bad[last..last + 2].copy_from_slice(&99u16.to_le_bytes());
+        assert!(view_of(&bad).validate().is_err());
+        // The good block still decodes.
+        assert!(decode_sparse(&view_of(&good), 8, &mut rows).unwrap());
+    }
+
+    /// Whatever a damaged block holds (its checksum recomputed), reading it never panics:
+    /// every single-byte change of every byte is either refused or decodes to a CSR part
+    /// that passes the checks.
+    #[test]
+    fn no_single_byte_change_makes_the_reader_panic() {
+        for values in [vec![1.0; 10], vec![0.5; 10], vec![0.1; 10]] {
+            let b = sparse_block(&values);
+            let mut good = Vec::new();
+            encode_block(&b, &[], 0, &mut good);
+            let mut rows = SparseRows::default();
+            for at in 0..good.len() {
+                for flip in [0x01u8, 0x80, 0xff] {
+                    let mut bad = good.clone();
+                    bad[at] ^= flip;
+                    let view = view_of(&bad);
+                    if view.validate().is_err() {
+                        continue;
+                    }
+                    let _ = view.section(Kind::Label, 0).map(|v| v.get(2));
+                    if let Ok(true) = decode_sparse(&view, 8, &mut rows) {
+                        assert_eq!(rows.rows(), 3);
+                        assert!(rows.index.iter().all(|i| *i < 8));
+                        assert_eq!(rows.index.len(), rows.value.len());
+                    }
+                }
+            }
+        }
     }
 }

@@ -47,10 +47,22 @@
 //! `checkpoint.prev`, renames the new file to `checkpoint` and syncs the directory.
 //! [`load`] reads `checkpoint` and falls back to `checkpoint.prev`, with a warning, when
 //! the newer file is missing, torn or corrupt.
+//!
+//! # When
+//!
+//! A fit writes a checkpoint when it starts and after accepted iterations, paced by a
+//! [`Pacer`]: after an iteration the checkpoint is written only when at least
+//! [`PACE`] times the duration of the last write has passed since that write ended (so
+//! writing costs at most about 1/[`PACE`] of the fit's time), or when it is smaller
+//! than [`SMALL_CHECKPOINT`] (written every time). A skipped
+//! one is written when the fit is interrupted (Ctrl-C); a crash loses at most the
+//! iterations since the last write. A resumed fit from an older checkpoint redoes those
+//! iterations and ends where the uninterrupted fit ends.
 
 use std::fs::{self, File};
 use std::io::{self, BufWriter, Write};
 use std::path::Path;
+use std::time::{Duration, Instant};
 
 use serde::de::{self, Visitor};
 use serde::{Deserialize, Deserializer, Serialize, Serializer};
@@ -984,5 +996,98 @@ fn list(paths: &[String]) -> String {
         "(none)".to_string()
     } else {
         paths.join(", ")
+    }
+}
+
+/// After an iteration, a checkpoint is written when at least `PACE ×` the duration of
+/// the last write has passed since it ended: writes cost at most about 5 % of the fit.
+pub const PACE: u32 = 20;
+/// A checkpoint smaller than this (in bytes) is written after every iteration.
+pub const SMALL_CHECKPOINT: u64 = 4 << 20;
+
+/// Decides which accepted iterations get a checkpoint (see the module's "When").
+#[derive(Debug, Clone, Default)]
+pub struct Pacer {
+    /// End and duration of the last write.
+    last: Option<(Instant, Duration)>,
+    /// A skipped checkpoint: the passes and seconds of its iteration.
+    pending: Option<(u64, f64)>,
+    /// Checkpoints skipped so far.
+    skipped: u64,
+}
+
+impl Pacer {
+    /// True when a checkpoint of about `bytes` after an iteration ending `now` is to be
+    /// written.
+    pub fn due(&self, now: Instant, bytes: u64) -> bool {
+        match self.last {
+            None => true,
+            Some((end, took)) => {
+                bytes < SMALL_CHECKPOINT || now.saturating_duration_since(end) >= took * PACE
+            }
+        }
+    }
+
+    /// A write ran from `started` to `ended`; nothing is pending any more.
+    pub fn wrote(&mut self, started: Instant, ended: Instant) {
+        self.last = Some((ended, ended.saturating_duration_since(started)));
+        self.pending = None;
+    }
+
+    /// The checkpoint of an iteration at `passes` and `seconds` was skipped. Returns
+    /// true for the first skip of the fit (to tell the user once).
+    pub fn skip(&mut self, passes: u64, seconds: f64) -> bool {
+        self.pending = Some((passes, seconds));
+        self.skipped += 1;
+        self.skipped == 1
+    }
+
+    /// The skipped checkpoint not written since, if any: its passes and seconds.
+    pub fn pending(&self) -> Option<(u64, f64)> {
+        self.pending
+    }
+
+    /// The pending state was saved some other way (with a pass in progress).
+    pub fn saved_elsewhere(&mut self) {
+        self.pending = None;
+    }
+
+    /// Duration of the last write.
+    pub fn last_write(&self) -> Option<Duration> {
+        self.last.map(|(_, took)| took)
+    }
+}
+
+#[cfg(test)]
+mod pace_tests {
+    use super::*;
+
+    #[test]
+    fn slow_writes_are_spaced_to_a_twentieth_of_the_time() {
+        let t0 = Instant::now();
+        let at = |ms: u64| t0 + Duration::from_millis(ms);
+        let big = 100 << 20;
+        let mut p = Pacer::default();
+        assert!(p.due(t0, big), "the first checkpoint is always written");
+        // A write of 400 ms: the next is due 8 s after it ended.
+        p.wrote(at(0), at(400));
+        assert!(!p.due(at(400 + 7_999), big));
+        assert!(p.skip(3, 8.0), "the first skip is reported");
+        assert!(!p.skip(4, 8.2));
+        assert_eq!(p.pending(), Some((4, 8.2)));
+        assert!(p.due(at(400 + 8_000), big));
+        p.wrote(at(8_400), at(8_500));
+        assert_eq!(p.pending(), None);
+        assert_eq!(p.last_write(), Some(Duration::from_millis(100)));
+        // A 100 ms write: due 2 s later.
+        assert!(!p.due(at(8_500 + 1_999), big));
+        assert!(p.due(at(8_500 + 2_000), big));
+        // Small checkpoints never wait, however slow the disk.
+        p.wrote(at(9_000), at(9_500));
+        assert!(p.due(at(9_500), SMALL_CHECKPOINT - 1));
+        assert!(!p.due(at(9_500), SMALL_CHECKPOINT));
+        p.skip(9, 1.0);
+        p.saved_elsewhere();
+        assert_eq!(p.pending(), None);
     }
 }

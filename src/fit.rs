@@ -420,6 +420,8 @@ struct Session {
     prior_seconds: f64,
     /// The last checkpoint saved between iterations; checkpoints inside a pass extend it.
     latest: Mutex<Option<Checkpoint>>,
+    /// Which iterations get a checkpoint.
+    pacer: Mutex<checkpoint::Pacer>,
     /// The block cache.
     cache: CacheSlot,
 }
@@ -460,14 +462,6 @@ fn cache_slot(
         .as_ref()
         .map(|h| serde_json::json!({"fraction": h.fraction, "key": h.key}));
     let key = CacheKey::new(source, design, holdout);
-    if design.sparse.is_some() && settings.cache != CacheSetting::Off {
-        // The cache format has no CSR sections yet: hashed and sparse-vector features
-        // are rebuilt from Parquet on every pass.
-        return CacheSlot::off(
-            key,
-            "reading Parquet on every pass: the block cache does not hold hashed or sparse-vector features yet".to_string(),
-        );
-    }
     let dir = settings.cache.dir(control.checkpoint_dir.as_deref());
     CacheSlot::open(dir.as_deref(), key)
 }
@@ -511,25 +505,34 @@ impl Session {
         self.prior_seconds + self.started.elapsed().as_secs_f64()
     }
 
+    /// Writes the checkpoint of the optimizer's state (the last accepted iterate).
     fn save_checkpoint(
         &self,
         control: &Control,
         optimizer: &mut Optimizer,
         passes: u64,
     ) -> Result<()> {
+        self.write_checkpoint(control, optimizer, passes, self.seconds())
+    }
+
+    fn write_checkpoint(
+        &self,
+        control: &Control,
+        optimizer: &mut Optimizer,
+        passes: u64,
+        seconds: f64,
+    ) -> Result<()> {
         let Some(dir) = &control.checkpoint_dir else {
             return Ok(());
         };
+        let started = Instant::now();
+        let progress = Progress { passes, seconds };
         if self.layout.sparse > 0 {
             // The state of a sparse fit is long (2·history + 2 vectors of all hashed
             // weights): lent to the checkpoint instead of copied, and not kept for
             // checkpoints inside a pass, which sparse fits therefore skip.
             let identity = self.identity();
-            let progress = Progress {
-                passes,
-                seconds: self.seconds(),
-            };
-            return optimizer.with_state(|state| {
+            optimizer.with_state(|state| {
                 let cp = Checkpoint {
                     identity,
                     progress,
@@ -538,22 +541,84 @@ impl Session {
                 };
                 let saved = checkpoint::save(dir, &cp);
                 (cp.state, saved)
-            });
+            })?;
+        } else {
+            let cp = Checkpoint {
+                identity: self.identity(),
+                progress,
+                state: optimizer.state().clone(),
+                partial: None,
+            };
+            checkpoint::save(dir, &cp)?;
+            if let Ok(mut latest) = self.latest.lock() {
+                *latest = Some(cp);
+            }
         }
-        let cp = Checkpoint {
-            identity: self.identity(),
-            progress: Progress {
-                passes,
-                seconds: self.seconds(),
-            },
-            state: optimizer.state().clone(),
-            partial: None,
-        };
-        checkpoint::save(dir, &cp)?;
-        if let Ok(mut latest) = self.latest.lock() {
-            *latest = Some(cp);
+        if let Ok(mut pacer) = self.pacer.lock() {
+            pacer.wrote(started, Instant::now());
         }
         Ok(())
+    }
+
+    /// The checkpoint after an accepted iteration, written when the [`checkpoint::Pacer`]
+    /// says it is due, else only remembered (written on an interruption). Tells the user
+    /// once when checkpoints start being spaced out.
+    fn checkpoint_iteration(
+        &self,
+        control: &Control,
+        optimizer: &mut Optimizer,
+        passes: u64,
+        events: &mut dyn FnMut(FitEvent<'_>),
+    ) -> Result<()> {
+        if control.checkpoint_dir.is_none() {
+            return Ok(());
+        }
+        let state = optimizer.state();
+        let vectors = 2 + state.s.len() + state.y.len();
+        let bytes = (vectors * state.x.len() * 8) as u64;
+        let due = self
+            .pacer
+            .lock()
+            .map(|p| p.due(Instant::now(), bytes))
+            .unwrap_or(true);
+        if due {
+            return self.save_checkpoint(control, optimizer, passes);
+        }
+        let seconds = self.seconds();
+        let (first, took) = match self.pacer.lock() {
+            Ok(mut p) => (p.skip(passes, seconds), p.last_write()),
+            Err(_) => (false, None),
+        };
+        if self.layout.sparse == 0 {
+            // Checkpoints inside a pass extend this state.
+            if let Ok(mut latest) = self.latest.lock() {
+                *latest = Some(Checkpoint {
+                    identity: self.identity(),
+                    progress: Progress { passes, seconds },
+                    state: optimizer.state().clone(),
+                    partial: None,
+                });
+            }
+        }
+        if first {
+            let took = took.unwrap_or_default().as_secs_f64();
+            events(FitEvent::Note(&format!(
+                "a checkpoint takes {took:.2}s to write; it is now written after an iteration only once {:.0}s have passed since the last one ({}x its cost), and on Ctrl-C",
+                took * f64::from(checkpoint::PACE),
+                checkpoint::PACE
+            )));
+        }
+        Ok(())
+    }
+
+    /// Writes the checkpoint skipped last, if any (an interrupted fit). The optimizer
+    /// still holds that iterate: a step that fails commits nothing to its state.
+    fn save_pending(&self, control: &Control, optimizer: &mut Optimizer) -> Result<()> {
+        let pending = self.pacer.lock().ok().and_then(|p| p.pending());
+        match pending {
+            Some((passes, seconds)) => self.write_checkpoint(control, optimizer, passes, seconds),
+            None => Ok(()),
+        }
     }
 }
 
@@ -568,6 +633,7 @@ fn pass_plan(source: &Source, settings: &FitSettings, control: &Control) -> Pass
 /// Saves the last accepted state (`latest`) together with a pass in progress.
 fn session_save_partial(
     latest: &Mutex<Option<Checkpoint>>,
+    pacer: &Mutex<checkpoint::Pacer>,
     control: &Control,
     partial: PartialPass,
 ) -> Result<()> {
@@ -578,7 +644,12 @@ fn session_save_partial(
         return Ok(());
     };
     cp.partial = Some(partial);
-    checkpoint::save(dir, &cp)
+    checkpoint::save(dir, &cp)?;
+    // The state of a skipped checkpoint is in it.
+    if let Ok(mut p) = pacer.lock() {
+        p.saved_elsewhere();
+    }
+    Ok(())
 }
 
 /// Fits a model on the Parquet files named by `data`.
@@ -835,6 +906,7 @@ pub fn fit_prepared(
         started,
         prior_seconds: 0.0,
         latest: Mutex::new(None),
+        pacer: Mutex::new(checkpoint::Pacer::default()),
         cache,
     };
     let optim_settings = optimizer_settings(settings, layout);
@@ -970,6 +1042,7 @@ pub fn resume(
         started,
         prior_seconds: cp.progress.seconds,
         latest: Mutex::new(None),
+        pacer: Mutex::new(checkpoint::Pacer::default()),
         cache,
     };
     let mut state = cp.state;
@@ -1042,7 +1115,8 @@ fn drive(
     let layout = session.layout;
     let penalized = settings.penalized();
     let separable_watch = !penalized && matches!(request.loss, Loss::Logistic | Loss::Softmax);
-    let save_partial = |p: PartialPass| session_save_partial(&session.latest, control, p);
+    let save_partial =
+        |p: PartialPass| session_save_partial(&session.latest, &session.pacer, control, p);
     // Built from the fields, not `session.objective()`: the loop below updates
     // `session.record` while the objective borrows the data and design.
     let mut objective = GlmObjective::new(
@@ -1070,7 +1144,13 @@ fn drive(
     let stop = loop {
         let outcome = optimizer.step(&mut objective);
         cache_notes(&session.cache, events);
-        let outcome = outcome?;
+        let outcome = match outcome {
+            Err(e) if e.kind() == crate::ErrorKind::Interrupted => {
+                session.save_pending(control, &mut optimizer)?;
+                return Err(e);
+            }
+            other => other?,
+        };
         let (last, stopped) = match outcome {
             StepOutcome::Continue(it) => (Some(it), None),
             StepOutcome::Stopped {
@@ -1154,7 +1234,7 @@ fn drive(
         }
         if last.is_some() {
             let passes = passes_now(&objective);
-            session.save_checkpoint(control, &mut optimizer, passes)?;
+            session.checkpoint_iteration(control, &mut optimizer, passes, events)?;
         }
     };
     let mut warnings = session.record.warnings.clone();

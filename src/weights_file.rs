@@ -102,7 +102,7 @@ pub struct HashedRecord {
     pub columns: Vec<String>,
     /// `--cross` crosses as given (`zone*hour`).
     pub crosses: Vec<String>,
-    /// `--sparse-vector` columns (`tokens:50000`).
+    /// `--sparse-vector` columns (`tokens:50000`, or `token_ids,token_counts:50000`).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub vectors: Vec<String>,
     /// The sidecar file name (in the model's directory), or the weights inline.
@@ -136,11 +136,7 @@ pub fn record(s: &SparseModel, weights: &[f64]) -> HashedRecord {
                     .join("*")
             })
             .collect(),
-        vectors: r
-            .vectors
-            .iter()
-            .map(|v| format!("{}:{}", v.column, v.dim))
-            .collect(),
+        vectors: r.vectors.iter().map(hashing::VectorColumn::spec).collect(),
         weights: if weights.len() <= INLINE_MAX {
             Value::Array(
                 weights

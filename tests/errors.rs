@@ -1033,6 +1033,57 @@ fn cases(w: &World) -> Vec<Case> {
         ),
         &["--sparse-vector", "COL:DIM"],
     ));
+    let pair = variant(w, "vector_pair.parquet", |c| {
+        let ids = arrow::array::ListArray::from_iter_primitive::<arrow::datatypes::Int64Type, _, _>(
+            (0..120).map(|i| {
+                Some(if i == 77 {
+                    vec![Some(1), Some(2), Some(3)]
+                } else {
+                    vec![Some(i % 7), Some(8)]
+                })
+            }),
+        );
+        let vals =
+            arrow::array::ListArray::from_iter_primitive::<arrow::datatypes::Float64Type, _, _>(
+                (0..120).map(|i| Some(vec![Some(0.5), Some(i as f64)])),
+            );
+        c.extra.push(("ids".into(), Arc::new(ids)));
+        c.extra.push(("vals".into(), Arc::new(vals)));
+    });
+    out.push(case(
+        "sparse vector index and value lists of unequal length",
+        fit(
+            w,
+            std::slice::from_ref(&pair),
+            &["--target", "y", "--sparse-vector", "ids,vals:10"],
+        ),
+        &[
+            "'ids'",
+            "'vals'",
+            "row 78",
+            "vector_pair.parquet",
+            "3 indices",
+            "2 values",
+        ],
+    ));
+    out.push(case(
+        "sparse vector values column that is not a list of numbers",
+        fit(
+            w,
+            std::slice::from_ref(&pair),
+            &["--target", "y", "--sparse-vector", "ids,x1:10"],
+        ),
+        &["'x1'", "list<number>", "ids,x1:DIM"],
+    ));
+    out.push(case(
+        "sparse vector pair without a values column",
+        fit(
+            w,
+            std::slice::from_ref(&pair),
+            &["--target", "y", "--sparse-vector", "ids,:10"],
+        ),
+        &["--sparse-vector", "IDX,VAL:DIM"],
+    ));
     let mut a = zx.to_vec();
     a.extend(["--hash-bits", "28", "--shards", "4"]);
     out.push(case(

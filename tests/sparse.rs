@@ -4,6 +4,10 @@
 //! - `hashed_fit_matches_scipy_sparse_lbfgsb`: tests/reference/sparse_hashed.py builds the
 //!   same hashed design with python-xxhash (the reference C library's XXH3) and
 //!   scipy.sparse, and fits it with scipy's L-BFGS-B (fixture tests/data/sparse/).
+//! - `hashed_softmax_matches_scipy_sparse_lbfgsb`: the same script fits a 3-class softmax
+//!   (one coefficient vector per class, ridge on every non-intercept coefficient) on the
+//!   same hashed design with scipy's L-BFGS-B (fixture
+//!   tests/data/sparse/hashed_softmax_expected.json).
 //! - `collision_free_hashing_equals_explicit_dummies`: explicit 0/1 dummy columns built
 //!   here, fitted as dense features.
 //! - `predict_gives_the_margins_the_fit_saw`: margins and the objective recomputed here
@@ -181,6 +185,85 @@ fn hashed_fit_matches_scipy_sparse_lbfgsb() {
         let k: usize = k.parse().expect("bucket");
         let v = v.as_f64().expect("number");
         assert!((w[k] - v).abs() < 1e-5, "bucket {k}: {} vs {v}", w[k]);
+    }
+}
+
+#[test]
+fn hashed_softmax_matches_scipy_sparse_lbfgsb() {
+    let expected = read_json(&test_data("sparse/hashed_softmax_expected.json"));
+    let data = test_data("sparse/hashed.parquet");
+    let dir = tempfile::tempdir().expect("tempdir");
+    let fit = fit_in(
+        dir.path(),
+        "softmax",
+        &[
+            "--data",
+            &data.display().to_string(),
+            "--target",
+            "slot",
+            "--loss",
+            "softmax",
+            "--features",
+            "distance",
+            "--categorical",
+            "zone,store,hour,tags",
+            "--cross",
+            "zone*hour",
+            "--cross",
+            "store*distance/2",
+            "--hash-bits",
+            "12",
+            "--ridge",
+            "1e-3",
+            "--tol",
+            "1e-10",
+            "--threads",
+            "2",
+        ],
+    );
+    let ours = fit.objective();
+    let theirs = json_f64(&expected, &["objective"]);
+    assert!(
+        ((ours - theirs) / theirs).abs() < 1e-8,
+        "objective {ours} vs scipy {theirs}; {}",
+        fit.summary()
+    );
+    let m = fit.model();
+    assert_eq!(m["classes"], expected["classes"], "class order");
+    assert_eq!(
+        m["hashed"]["nonzero"].as_u64(),
+        expected["nonzero_buckets"].as_u64(),
+        "nonzero hashed weights"
+    );
+    // Internal (standardized) coefficients: per class an intercept and distance, then
+    // every class's buckets. The intercepts are determined up to a common shift.
+    let internal: Vec<f64> = m["internal"]["coefficients"]
+        .as_array()
+        .expect("internal coefficients")
+        .iter()
+        .map(|v| v.as_f64().expect("number"))
+        .collect();
+    let mean = (internal[0] + internal[2] + internal[4]) / 3.0;
+    for k in 0..3 {
+        let b = internal[2 * k] - mean;
+        let want = expected["intercepts_centred"][k].as_f64().expect("number");
+        assert!((b - want).abs() < 1e-5, "intercept {k}: {b} vs {want}");
+        let d = internal[2 * k + 1];
+        let want = expected["distance"][k].as_f64().expect("number");
+        assert!((d - want).abs() < 1e-5, "distance {k}: {d} vs {want}");
+    }
+    let model = Model::load(&fit.model_path).expect("load");
+    let w = model.sparse_weights();
+    let buckets = 1usize << 12;
+    assert_eq!(w.len(), 3 * buckets);
+    for (k, sample) in expected["weights_sample"].as_object().expect("sample") {
+        let k: usize = k.parse().expect("class");
+        for (j, v) in sample.as_object().expect("class sample") {
+            let j: usize = j.parse().expect("bucket");
+            let v = v.as_f64().expect("number");
+            let got = w[k * buckets + j];
+            assert!((got - v).abs() < 1e-5, "class {k} bucket {j}: {got} vs {v}");
+        }
     }
 }
 

@@ -62,10 +62,14 @@ impl Part {
 /// indices in `0..dim`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct VectorColumn {
-    /// Source column.
+    /// Source column (of the pair form: the `list<integer>` indices).
     pub column: String,
     /// Declared dimension.
     pub dim: u32,
+    /// The pair form `IDX,VAL:DIM`: the `list<number>` column of the values, as long
+    /// as the index list in every row (none: `column` is a `list<struct<index, value>>`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub values: Option<String>,
 }
 
 /// The sparse part of a feature request: what is hashed, how wide, and which sparse
@@ -128,11 +132,22 @@ pub fn parse_cross(text: &str) -> Result<Vec<Part>> {
     Ok(parts)
 }
 
-/// Parses `COL:DIM` of `--sparse-vector`.
+impl VectorColumn {
+    /// The column(s) and dimension as `--sparse-vector` takes them: `COL:DIM` or
+    /// `IDX,VAL:DIM` ([`parse_vector`] reads it back).
+    pub fn spec(&self) -> String {
+        match &self.values {
+            Some(v) => format!("{},{v}:{}", self.column, self.dim),
+            None => format!("{}:{}", self.column, self.dim),
+        }
+    }
+}
+
+/// Parses `COL:DIM` or `IDX,VAL:DIM` (a pair of list columns) of `--sparse-vector`.
 pub fn parse_vector(text: &str) -> Result<VectorColumn> {
     let bad = || {
         Error::usage(format!(
-            "--sparse-vector '{text}' is not COL:DIM with DIM a whole number from 1 to 2^31, e.g. tokens:50000"
+            "--sparse-vector '{text}' is not COL:DIM or IDX,VAL:DIM with DIM a whole number from 1 to 2^31, e.g. tokens:50000 or token_ids,token_counts:50000"
         ))
     };
     let (c, d) = text.rsplit_once(':').ok_or_else(bad)?;
@@ -140,9 +155,20 @@ pub fn parse_vector(text: &str) -> Result<VectorColumn> {
     if dim == 0 || dim > 1 << 31 || c.trim().is_empty() {
         return Err(bad());
     }
+    let (column, values) = match c.split_once(',') {
+        None => (c.trim(), None),
+        Some((i, v)) => {
+            let (i, v) = (i.trim(), v.trim());
+            if i.is_empty() || v.is_empty() || v.contains(',') || i == v {
+                return Err(bad());
+            }
+            (i, Some(v.to_string()))
+        }
+    };
     Ok(VectorColumn {
-        column: c.trim().to_string(),
+        column: column.to_string(),
         dim,
+        values,
     })
 }
 
@@ -283,7 +309,12 @@ impl SparseDesign {
             .hashed
             .iter()
             .flat_map(|f| f.parts.iter().map(|p| p.column.clone()))
-            .chain(self.request.vectors.iter().map(|v| v.column.clone()));
+            .chain(
+                self.request
+                    .vectors
+                    .iter()
+                    .flat_map(|v| std::iter::once(v.column.clone()).chain(v.values.clone())),
+            );
         for c in all {
             if !out.contains(&c) {
                 out.push(c);
@@ -333,6 +364,34 @@ impl SparseDesign {
         }
         for v in &self.request.vectors {
             let ty = source.column_type(&v.column).cloned();
+            if let Some(values) = &v.values {
+                let list_of = |t: Option<&DataType>, kinds: &[PartKind]| match t {
+                    Some(DataType::List(f) | DataType::LargeList(f)) => {
+                        kinds.contains(&part_kind(f.data_type()))
+                    }
+                    _ => false,
+                };
+                let vty = source.column_type(values).cloned();
+                for (col, t, want, kinds) in [
+                    (&v.column, &ty, "list<integer>", &[PartKind::Int][..]),
+                    (
+                        values,
+                        &vty,
+                        "list<number>",
+                        &[PartKind::Int, PartKind::Float][..],
+                    ),
+                ] {
+                    if !list_of(t.as_ref(), kinds) {
+                        return Err(Error::usage(format!(
+                            "the sparse vector column '{col}' of {file} is of type {}; --sparse-vector {},{}:DIM needs {want} there",
+                            t.as_ref().map(|t| t.to_string()).unwrap_or_default(),
+                            v.column,
+                            values
+                        )));
+                    }
+                }
+                continue;
+            }
             if !ty.as_ref().is_some_and(is_vector_type) {
                 return Err(Error::usage(format!(
                     "the sparse vector column '{}' of {file} is of type {}; --sparse-vector needs list<struct<index: integer, value: number>>",
@@ -688,6 +747,9 @@ fn read_vector(
         _ => return Err(bad_type()),
     };
     let list = list.as_list::<i32>();
+    if let Some(values) = &v.values {
+        return read_vector_pair(v, values, list, offset, batch, place, per_row);
+    }
     let items = list.values().as_struct_opt().ok_or_else(bad_type)?;
     let field = |name: &str, ty: &DataType| -> Result<ArrayRef> {
         let col = items.column_by_name(name).ok_or_else(bad_type)?;
@@ -726,6 +788,100 @@ fn read_vector(
                 return Err(Error::data(format!(
                     "the sparse vector column '{}' holds the non-finite value {val} at {}",
                     v.column,
+                    place.row(i)
+                )));
+            }
+            entries.push(((offset + ix as usize) as u32, val));
+        }
+    }
+    Ok(())
+}
+
+/// Reads the pair form `IDX,VAL:DIM` of a sparse vector: the index list `list` (of
+/// column `v.column`) and the value list of column `values`, of equal length in every row
+/// (a null list has no entries).
+fn read_vector_pair(
+    v: &VectorColumn,
+    values: &str,
+    list: &arrow::array::ListArray,
+    offset: usize,
+    batch: &arrow::array::RecordBatch,
+    place: Place<'_>,
+    per_row: &mut [Vec<(u32, f64)>],
+) -> Result<()> {
+    let flag = format!("--sparse-vector {},{values}:{}", v.column, v.dim);
+    let array = batch.column_by_name(values).ok_or_else(|| {
+        Error::data(format!(
+            "{} has no column '{values}', which the model reads as the values of {flag}",
+            place.file.path.display()
+        ))
+    })?;
+    let bad_type = |col: &str, ty: &DataType, want: &str| {
+        Error::data(format!(
+            "the sparse vector column '{col}' of {} is of type {ty}; {flag} needs {want} there",
+            place.file.path.display()
+        ))
+    };
+    let vlist: ArrayRef = match array.data_type() {
+        DataType::List(_) => array.clone(),
+        DataType::LargeList(item) => cast(
+            array,
+            &DataType::List(std::sync::Arc::new(item.as_ref().clone())),
+        )
+        .map_err(|_| bad_type(values, array.data_type(), "list<number>"))?,
+        ty => return Err(bad_type(values, ty, "list<number>")),
+    };
+    let vlist = vlist.as_list::<i32>();
+    let index = cast(list.values(), &DataType::Int64)
+        .map_err(|_| bad_type(&v.column, list.data_type(), "list<integer>"))?;
+    let index: &Int64Array = index.as_primitive();
+    let value = cast(vlist.values(), &DataType::Float64)
+        .map_err(|_| bad_type(values, vlist.data_type(), "list<number>"))?;
+    let value: &Float64Array = value.as_primitive();
+    let len = |l: &arrow::array::ListArray, i: usize| {
+        if l.is_null(i) {
+            0
+        } else {
+            (l.value_offsets()[i + 1] - l.value_offsets()[i]) as usize
+        }
+    };
+    for (i, entries) in per_row.iter_mut().enumerate() {
+        let (ni, nv) = (len(list, i), len(vlist, i));
+        if ni != nv {
+            return Err(Error::data(format!(
+                "the sparse vector columns '{}' and '{values}' hold {ni} indices and {nv} values at {}; {flag} needs one value per index in every row",
+                v.column,
+                place.row(i)
+            )));
+        }
+        if ni == 0 {
+            continue;
+        }
+        let a = list.value_offsets()[i] as usize;
+        let b = vlist.value_offsets()[i] as usize;
+        for k in 0..ni {
+            let (ki, kv) = (a + k, b + k);
+            if index.is_null(ki) || value.is_null(kv) {
+                return Err(Error::data(format!(
+                    "the sparse vector columns '{}' and '{values}' hold a null index or value at {}; every entry needs both",
+                    v.column,
+                    place.row(i)
+                )));
+            }
+            let ix = index.value(ki);
+            let val = value.value(kv);
+            if ix < 0 || ix >= i64::from(v.dim) {
+                return Err(Error::data(format!(
+                    "the sparse vector column '{}' has the index {ix} at {}, outside its declared dimension {} (indices run from 0 to {}); fix the data or declare a larger dimension in {flag}",
+                    v.column,
+                    place.row(i),
+                    v.dim,
+                    v.dim - 1,
+                )));
+            }
+            if !val.is_finite() {
+                return Err(Error::data(format!(
+                    "the sparse vector column '{values}' holds the non-finite value {val} at {}",
                     place.row(i)
                 )));
             }

@@ -957,6 +957,15 @@ impl Design {
         &self.feature_columns
     }
 
+    /// Dense source columns: the first ones of [`Design::feature_columns`] (those that
+    /// numeric features read; the block cache stores one section for each).
+    pub fn dense_columns(&self) -> usize {
+        self.feature_columns
+            .iter()
+            .take_while(|c| self.features.iter().any(|f| &f.column == *c))
+            .count()
+    }
+
     /// Columns a training pass decodes: target, weight, features.
     pub fn training_columns(&self) -> Vec<&str> {
         let mut out = vec![self.target.as_str()];

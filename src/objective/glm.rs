@@ -543,7 +543,7 @@ impl GlmObjective<'_> {
     ) -> Result<Vec<PassSums>> {
         let (layout, design, source, plan) = (self.layout, self.design, self.source, self.plan);
         let columns = design.training_columns();
-        let ncols = design.feature_columns().len();
+        let ncols = design.dense_columns();
         let save = |states: Vec<ShardStart<PassSums>>| self.save_partial(x, states);
         let snapshots = self.mid_pass.as_ref().map(|mid| Snapshots {
             every: mid.every,
@@ -1070,7 +1070,8 @@ fn accumulate_body(
         };
         let tile = Tile {
             rows,
-            cols: &block.x[r0..],
+            // No dense features: `x` is empty (width 0, no column is read).
+            cols: block.x.get(r0..).unwrap_or(&[]),
             stride: n,
             y: &block.y[r0..r0 + rows],
             w: if block.w.is_empty() {
@@ -1190,6 +1191,7 @@ fn accumulate_cached_body(
         }
         None => s.held.clear(),
     }
+    let sparse = cached_sparse(cache, view, layout, &mut s.block.sparse)?;
     let step = tile_rows(layout.width);
     s.tile.resize(step * decoders.len().max(1), 0.0);
     let mut r0 = 0;
@@ -1228,13 +1230,39 @@ fn accumulate_cached_body(
             },
             file: view.file,
             first_row: view.first_row + r0 as u64,
-            sparse: None,
-            sparse_first: 0,
+            sparse: sparse.then_some(&s.block.sparse),
+            sparse_first: r0,
         };
         fold_tile(t, &mut s.z, &mut s.row, &tile, x, layout, loss, source);
         r0 += rows;
     }
     Ok(())
+}
+
+/// Decodes the CSR part of a cached block into `rows` (the shard's scratch, reused:
+/// in a cached pass the scratch block built from Parquet is idle, so its CSR vectors
+/// hold the decoded part and nothing is allocated per block once warm). Returns whether
+/// the block has one; a block of a sparse design without one, or with a damaged one,
+/// marks the cache damaged.
+fn cached_sparse(
+    cache: &BlockCache,
+    view: &BlockView<'_>,
+    layout: Layout,
+    rows: &mut SparseRows,
+) -> Result<bool> {
+    let has = crate::cache::decode_sparse(view, layout.sparse, rows)
+        .map_err(|why| cache.damaged(format!("block of {} rows {why}", view.rows)))?;
+    if layout.sparse > 0 && view.rows > 0 && !has {
+        return Err(cache.damaged("lacks its sparse sections".to_string()));
+    }
+    if has && rows.rows() != view.rows {
+        return Err(cache.damaged(format!(
+            "has sparse sections of {} rows in a block of {}",
+            rows.rows(),
+            view.rows
+        )));
+    }
+    Ok(has)
 }
 
 /// Margins of every group for every row of `block`, group-major: `z[g * rows + i]`.

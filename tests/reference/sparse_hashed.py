@@ -1,7 +1,7 @@
-"""Reference for the hashed logistic fit of tests/sparse.rs.
+"""Reference for the hashed logistic and softmax fits of tests/sparse.rs.
 
 Writes tests/data/sparse/hashed.parquet (a small invented order log: zone, store, hour,
-tags, distance, late) and tests/data/sparse/hashed_expected.json: the objective of
+tags, distance, late, slot) and tests/data/sparse/hashed_expected.json: the objective of
 DESIGN §4 (mean logistic loss + ridge/2 · ‖β‖², intercept not penalized; the numeric
 column standardized by its mean and population standard deviation) minimized by
 scipy.optimize.minimize(method="L-BFGS-B") over a scipy.sparse CSR design built here,
@@ -12,6 +12,13 @@ independently of outcore, with the hashing described in src/features/hashing.rs:
   of a cross are joined by 0xFE, a binned part COL/W is the text of floor(value / W);
 - bucket = low `bits` bits of XXH3-64(value bytes, seed), sign = -1 when the top bit is
   set; a token list hashes each token (a null list: one 0xFF entry).
+
+Softmax (tests/data/sparse/hashed_softmax_expected.json): the 3-class target `slot`
+(0, 1, 2) on the same hashed design, one coefficient vector per class (intercept,
+distance, buckets), mean loss log(sum_k exp z_k) - z_y + ridge/2 times the squared norm
+of every non-intercept coefficient of every class, minimized the same way; the
+intercepts are unpenalized, so only their differences are determined: they are
+reported centred to sum to zero.
 
 XXH3-64 comes from the `xxhash` package (python-xxhash 4.1.0, bindings of the reference
 C library). Run: python3 tests/reference/sparse_hashed.py (numpy, scipy, pyarrow, xxhash).
@@ -61,7 +68,23 @@ def make_data(n=3000, seed=20261201):
         + np.array([0.2 * (t is not None and "kale" in t) for t in tags])
     )
     late = (rng.random(n) < 1 / (1 + np.exp(-margin))).astype(np.int64)
-    return zone, store, hour, tags, distance, late
+    # The class target draws from a stream of its own, so the columns above stay as they
+    # were before it was added.
+    rng2 = np.random.default_rng(seed + 1)
+    zone_effect = {z: rng2.normal(0, 0.7, 3) for z in zones}
+    hour_effect = rng2.normal(0, 0.5, (24, 3))
+    logits = np.array(
+        [
+            zone_effect.get(zone[i], np.zeros(3)) + hour_effect[hour[i]]
+            + np.array([0.0, 0.25, -0.25]) * (distance[i] - 3.0)
+            for i in range(n)
+        ]
+    )
+    p = np.exp(logits - logits.max(axis=1, keepdims=True))
+    p /= p.sum(axis=1, keepdims=True)
+    u = rng2.random(n)
+    slot = (u[:, None] > np.cumsum(p, axis=1)).sum(axis=1).clip(0, 2).astype(np.int64)
+    return zone, store, hour, tags, distance, late, slot
 
 
 def h64(seed, data):
@@ -75,7 +98,7 @@ def text(v):
 
 
 def main():
-    zone, store, hour, tags, distance, late = make_data()
+    zone, store, hour, tags, distance, late, slot = make_data()
     n = len(late)
     os.makedirs(DATA, exist_ok=True)
     table = pa.table(
@@ -86,6 +109,7 @@ def main():
             "tags": pa.array(tags, pa.list_(pa.string())),
             "distance": pa.array(distance, pa.float64()),
             "late": pa.array(late, pa.int64()),
+            "slot": pa.array(slot, pa.int64()),
         }
     )
     pq.write_table(table, os.path.join(DATA, "hashed.parquet"))
@@ -156,6 +180,59 @@ def main():
         "message": str(res.message),
     }
     with open(os.path.join(DATA, "hashed_expected.json"), "w") as fh:
+        json.dump(out, fh, indent=2)
+        fh.write("\n")
+    print(json.dumps({k: out[k] for k in ("objective", "gradient_max", "nonzero_buckets", "message")}))
+    softmax(X, slot, buckets)
+
+
+def softmax(X, slot, buckets):
+    n, d = X.shape
+    K = 3
+    Y = np.zeros((n, K))
+    Y[np.arange(n), slot] = 1.0
+
+    def f(w):
+        W = w.reshape(K, d)
+        Z = np.asarray(X @ W.T)
+        m = Z.max(axis=1, keepdims=True)
+        lse = m[:, 0] + np.log(np.exp(Z - m).sum(axis=1))
+        loss = np.mean(lse - Z[np.arange(n), slot])
+        P = np.exp(Z - lse[:, None])
+        G = np.asarray(X.T @ ((P - Y) / n)).T
+        pen = 0.5 * RIDGE * np.sum(W[:, 1:] ** 2)
+        G[:, 1:] += RIDGE * W[:, 1:]
+        return loss + pen, G.ravel()
+
+    res = minimize(
+        f,
+        np.zeros(K * d),
+        jac=True,
+        method="L-BFGS-B",
+        options={"maxiter": 20000, "maxcor": 20, "gtol": 1e-13, "ftol": 1e-16},
+    )
+    W = res.x.reshape(K, d)
+    b = W[:, 0] - W[:, 0].mean()
+    sample = {}
+    for k in range(K):
+        nz = np.flatnonzero(W[k, 2:])
+        sample[str(k)] = {str(j): float(W[k, 2 + j]) for j in nz[:10]}
+    out = {
+        "source": "tests/reference/sparse_hashed.py: scipy.optimize.minimize L-BFGS-B, softmax over the same scipy.sparse CSR design",
+        "scipy": scipy.__version__,
+        "xxhash": xxhash.VERSION,
+        "bits": BITS,
+        "ridge": RIDGE,
+        "classes": [str(k) for k in range(K)],
+        "objective": float(res.fun),
+        "gradient_max": float(np.max(np.abs(res.jac))),
+        "intercepts_centred": [float(v) for v in b],
+        "distance": [float(W[k, 1]) for k in range(K)],
+        "nonzero_buckets": int(np.count_nonzero(W[:, 2:])),
+        "weights_sample": sample,
+        "message": str(res.message),
+    }
+    with open(os.path.join(DATA, "hashed_softmax_expected.json"), "w") as fh:
         json.dump(out, fh, indent=2)
         fh.write("\n")
     print(json.dumps({k: out[k] for k in ("objective", "gradient_max", "nonzero_buckets", "message")}))
