@@ -1,5 +1,6 @@
 //! The GLM objective over streamed data: one pass per evaluation.
 
+use std::sync::Mutex;
 use std::time::Duration;
 
 use super::start::PassTotals;
@@ -170,6 +171,17 @@ impl Clone for PassSums {
 }
 
 impl PassSums {
+    /// Zero sums, keeping the buffers.
+    fn reset(&mut self) {
+        let t = &mut self.t;
+        t.loss = 0.0;
+        t.grad.fill(0.0);
+        t.wrong = 0.0;
+        t.overflow = None;
+        t.holdout_loss = 0.0;
+        t.holdout_weight = 0.0;
+    }
+
     fn empty(dim: usize) -> PassSums {
         PassSums {
             t: Totals {
@@ -285,6 +297,12 @@ pub struct GlmObjective<'a> {
     cache: Option<&'a CacheSlot>,
     /// The sums at the starting point, known without a pass (see [`super::start`]).
     start: Option<(Vec<f64>, PassTotals)>,
+    /// Shard sums (and their scratch buffers) of the last pass, reused by the next one:
+    /// with millions of hashed coordinates a fresh gradient buffer per shard and pass
+    /// costs page faults and unmapping far above the zeroing of a reused one.
+    pool: Mutex<Vec<PassSums>>,
+    /// The pass's summed gradient, reused likewise.
+    sum_buffer: Vec<f64>,
 }
 
 impl<'a> GlmObjective<'a> {
@@ -312,6 +330,21 @@ impl<'a> GlmObjective<'a> {
             holdout_memo: Vec::new(),
             cache: None,
             start: None,
+            pool: Mutex::new(Vec::new()),
+            sum_buffer: Vec::new(),
+        }
+    }
+
+    /// Empty shard sums: a reused set from the pool, zeroed, or a new one.
+    fn shard_sums(&self) -> PassSums {
+        let dim = self.layout.dim();
+        let reused = self.pool.lock().ok().and_then(|mut p| p.pop());
+        match reused {
+            Some(mut sums) if sums.t.grad.len() == dim => {
+                sums.reset();
+                sums
+            }
+            _ => PassSums::empty(dim),
         }
     }
 
@@ -558,7 +591,7 @@ impl GlmObjective<'_> {
         pass::run_units(
             source,
             plan,
-            || PassSums::empty(layout.dim()),
+            || self.shard_sums(),
             |acc: &mut PassSums, (index, at): (usize, BatchAt)| {
                 let s = &mut acc.scratch;
                 let mut block = std::mem::take(&mut s.block);
@@ -607,7 +640,7 @@ impl GlmObjective<'_> {
         pass::run_units(
             source,
             plan,
-            || PassSums::empty(layout.dim()),
+            || self.shard_sums(),
             |acc: &mut PassSums, view: BlockView<'c>| {
                 accumulate_cached(acc, cache, &view, &decoders, x, layout, design.loss, source)
             },
@@ -648,9 +681,12 @@ impl Objective for GlmObjective<'_> {
                 };
                 crate::memory::sample();
                 self.passes += 1;
+                let mut sum = std::mem::take(&mut self.sum_buffer);
+                sum.clear();
+                sum.resize(layout.dim(), 0.0);
                 let mut totals = PassTotals {
                     loss: 0.0,
-                    grad: vec![0.0; layout.dim()],
+                    grad: sum,
                     wrong: 0.0,
                     holdout_loss: 0.0,
                     holdout_weight: 0.0,
@@ -667,6 +703,10 @@ impl Objective for GlmObjective<'_> {
                         overflow = shard.overflow.clone();
                     }
                 }
+                if let Ok(mut pool) = self.pool.lock() {
+                    pool.clear();
+                    pool.extend(shards);
+                }
                 totals
             }
         };
@@ -678,6 +718,7 @@ impl Objective for GlmObjective<'_> {
             holdout_weight,
         } = totals;
         grad.copy_from_slice(&sums);
+        self.sum_buffer = sums;
         let inv_w = 1.0 / self.weight_sum;
         let mean_loss = loss_sum * inv_w;
         let mut f = mean_loss;
@@ -704,8 +745,12 @@ impl Objective for GlmObjective<'_> {
             }
             self.holdout_memo.push((point_key(x), h));
         }
+        // The point's copy reuses the last one's buffer (a long vector with hashing).
+        let mut at = self.last.take().map(|e| e.x).unwrap_or_default();
+        at.clear();
+        at.extend_from_slice(x);
         self.last = Some(EvalExtras {
-            x: x.to_vec(),
+            x: at,
             mean_loss,
             wrong_share: wrong * inv_w,
             overflow,
