@@ -889,6 +889,92 @@ impl BlockCache {
     }
 }
 
+/// Reads a whole cache file held in memory the way passes read it: the header, the key
+/// (taken as the expected one), the index, and every block's checksum, section table,
+/// per-row sections (decoded in full) and CSR part. Returns the number of blocks, or
+/// why the file would be rebuilt. For the fuzz target (`fuzzing::cache`) and its corpus.
+pub fn read_in_memory(map: &[u8]) -> std::result::Result<usize, String> {
+    let key = stored_key(map)?;
+    let entries = BlockCache::check(map, &key)?;
+    let mut values = Vec::new();
+    let mut sparse = SparseRows::default();
+    for (i, e) in entries.iter().enumerate() {
+        let bytes = &map[e.offset as usize..(e.offset + e.len) as usize];
+        if crc32c::crc32c(bytes) != e.crc {
+            return Err(format!("block {i} fails its checksum"));
+        }
+        let view = BlockView {
+            bytes,
+            rows: e.rows as usize,
+            file: e.file as usize,
+            first_row: e.first_row,
+        };
+        view.validate().map_err(|why| format!("block {i} {why}"))?;
+        values.clear();
+        values.resize(view.rows, 0.0);
+        for kind in [Kind::Label, Kind::Weight, Kind::Holdout] {
+            if let Some(v) = view.section(kind, 0) {
+                v.decode_into(0, &mut values, |x| x);
+            }
+        }
+        for column in 0..key.columns.len() as u32 {
+            if let Some(v) = view.section(Kind::Dense, column) {
+                v.decode_ahead(0, &mut values, view.rows, |x| x);
+            }
+        }
+        decode_sparse(&view, u32::MAX as usize, &mut sparse)
+            .map_err(|why| format!("block {i} {why}"))?;
+    }
+    Ok(entries.len())
+}
+
+/// The key a cache file says it was built for (after the header checks).
+fn stored_key(map: &[u8]) -> std::result::Result<CacheKey, String> {
+    if (map.len() as u64) < HEADER || &map[..16] != MAGIC {
+        return Err("it is not a block cache (or its header is damaged)".to_string());
+    }
+    let (at, len) = (u64_at(map, 24), u64_at(map, 32));
+    let key = at
+        .checked_add(len)
+        .filter(|end| *end <= map.len() as u64)
+        .map(|end| &map[at as usize..end as usize])
+        .ok_or_else(|| "it is truncated or its header is damaged".to_string())?;
+    serde_json::from_slice(key).map_err(|_| "its key cannot be read".to_string())
+}
+
+/// `map` with its index checksum and every block checksum that lies inside the file made
+/// right, so that a fuzzer's changes reach the parsing behind the checksums.
+pub fn with_checksums_made_right(map: &[u8]) -> Vec<u8> {
+    let mut out = map.to_vec();
+    if (out.len() as u64) < HEADER || &out[..16] != MAGIC {
+        return out;
+    }
+    let (key_at, index_at) = (u64_at(&out, 24), u64_at(&out, 40));
+    if key_at > index_at || index_at > out.len() as u64 {
+        return out;
+    }
+    let (key_at, index_at) = (key_at as usize, index_at as usize);
+    let entries = (out.len() - index_at) / ENTRY;
+    for k in 0..entries {
+        let at = index_at + k * ENTRY;
+        let e = Entry::decode(&out[at..at + ENTRY]);
+        let end = e
+            .offset
+            .checked_add(e.len)
+            .filter(|end| *end <= out.len() as u64);
+        if let Some(end) = end {
+            let crc = crc32c::crc32c(&out[e.offset as usize..end as usize]);
+            let fixed = Entry { crc, ..e };
+            let mut bytes = Vec::with_capacity(ENTRY);
+            fixed.encode(&mut bytes);
+            out[at..at + ENTRY].copy_from_slice(&bytes);
+        }
+    }
+    let crc = crc32c::crc32c_append(crc32c::crc32c(&out[key_at..index_at]), &out[index_at..]);
+    out[56..60].copy_from_slice(&crc.to_le_bytes());
+    out
+}
+
 /// One block of the cache, read in place.
 #[derive(Debug, Clone, Copy)]
 pub struct BlockView<'a> {

@@ -5,7 +5,7 @@
 
 use std::path::Path;
 
-use crate::{checkpoint, model::Model, settings_file};
+use crate::{cache, checkpoint, model::Model, settings_file};
 
 /// The model-file reader ([`Model::from_json_slice`]) and what `inspect`, `predict` and
 /// a refit do with a model that loaded: original-scale coefficients, the scoring
@@ -52,4 +52,12 @@ pub fn checkpoint(bytes: &[u8]) {
 pub fn settings(bytes: &[u8]) {
     let text = String::from_utf8_lossy(bytes);
     let _ = settings_file::parse(&text, Path::new("fuzz.toml"));
+}
+
+/// The block-cache reader ([`cache::read_in_memory`]: header, key, index, every block's
+/// sections and CSR part), on the bytes as given and again with the checksums made right
+/// (so that mutations reach the section tables and decoders behind them).
+pub fn cache(bytes: &[u8]) {
+    let _ = cache::read_in_memory(bytes);
+    let _ = cache::read_in_memory(&cache::with_checksums_made_right(bytes));
 }
