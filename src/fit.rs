@@ -1264,6 +1264,9 @@ fn drive(
         && stop != FitStop::Separable
         && within_budget
         && layout.width <= crate::inference::IDENTIFIABILITY_MAX_FEATURES
+        // The check factors the dense information matrix; hashed coordinates are not in
+        // it (it named the intercept for an unpenalized hashed fit).
+        && layout.sparse == 0
     {
         let training = session.design.training_only();
         let req = crate::inference::Request {

@@ -110,6 +110,9 @@ fn every_single_byte_change_of_cache_seeds_reads_without_panic() {
                 panicked.push(at);
             }
         }
-        assert!(panicked.is_empty(), "{seed}: changes at {panicked:?} panicked");
+        assert!(
+            panicked.is_empty(),
+            "{seed}: changes at {panicked:?} panicked"
+        );
     }
 }

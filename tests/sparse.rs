@@ -499,3 +499,41 @@ fn lasso_gives_exact_zeros_in_the_hashed_weights() {
     let zeros = model.sparse_weights().iter().filter(|v| **v == 0.0).count();
     assert_eq!(zeros as u64, 4096 - nonzero);
 }
+
+/// An unpenalized hashed fit skips the identifiability check of dense fits (which
+/// factors the dense information matrix only, and once named the intercept as not
+/// identified for such a fit).
+#[test]
+fn unpenalized_hashed_fit_has_no_identifiability_warning() {
+    let data = test_data("sparse/hashed.parquet");
+    let dir = tempfile::tempdir().expect("tempdir");
+    let fit = fit_in(
+        dir.path(),
+        "plain",
+        &[
+            "--data",
+            &data.display().to_string(),
+            "--target",
+            "late",
+            "--features",
+            "distance",
+            "--categorical",
+            "zone",
+            "--hash-bits",
+            "10",
+            "--max-passes",
+            "200",
+        ],
+    );
+    assert!(
+        matches!(fit.code, 0 | 1),
+        "exit {}: {}",
+        fit.code,
+        fit.stderr
+    );
+    assert!(
+        !fit.stderr.contains("not identified"),
+        "stderr: {}",
+        fit.stderr
+    );
+}
