@@ -289,6 +289,30 @@ struct Entry {
 }
 
 impl Entry {
+    /// The block `index` this entry places in `map` (bounds checked by
+    /// [`BlockCache::check`]), its checksum tested when `check_crc`, its section table
+    /// validated.
+    fn view<'a>(
+        &self,
+        map: &'a [u8],
+        index: usize,
+        check_crc: bool,
+    ) -> std::result::Result<BlockView<'a>, String> {
+        let bytes = &map[self.offset as usize..(self.offset + self.len) as usize];
+        if check_crc && crc32c::crc32c(bytes) != self.crc {
+            return Err(format!("block {index} fails its checksum"));
+        }
+        let view = BlockView {
+            bytes,
+            rows: self.rows as usize,
+            file: self.file as usize,
+            first_row: self.first_row,
+        };
+        view.validate()
+            .map_err(|why| format!("block {index} {why}"))?;
+        Ok(view)
+    }
+
     fn encode(&self, out: &mut Vec<u8>) {
         out.extend_from_slice(&self.offset.to_le_bytes());
         out.extend_from_slice(&self.len.to_le_bytes());
@@ -870,21 +894,9 @@ impl BlockCache {
             .entries
             .get(index)
             .ok_or_else(|| fail(format!("has no block {index}")))?;
-        let bytes = &self.map[e.offset as usize..(e.offset + e.len) as usize];
-        if !self.checked[index].load(Ordering::Relaxed) {
-            if crc32c::crc32c(bytes) != e.crc {
-                return Err(fail(format!("block {index} fails its checksum")));
-            }
-            self.checked[index].store(true, Ordering::Relaxed);
-        }
-        let view = BlockView {
-            bytes,
-            rows: e.rows as usize,
-            file: e.file as usize,
-            first_row: e.first_row,
-        };
-        view.validate()
-            .map_err(|why| fail(format!("block {index} {why}")))?;
+        let first_use = !self.checked[index].load(Ordering::Relaxed);
+        let view = e.view(&self.map, index, first_use).map_err(fail)?;
+        self.checked[index].store(true, Ordering::Relaxed);
         Ok(view)
     }
 }
@@ -899,17 +911,7 @@ pub fn read_in_memory(map: &[u8]) -> std::result::Result<usize, String> {
     let mut values = Vec::new();
     let mut sparse = SparseRows::default();
     for (i, e) in entries.iter().enumerate() {
-        let bytes = &map[e.offset as usize..(e.offset + e.len) as usize];
-        if crc32c::crc32c(bytes) != e.crc {
-            return Err(format!("block {i} fails its checksum"));
-        }
-        let view = BlockView {
-            bytes,
-            rows: e.rows as usize,
-            file: e.file as usize,
-            first_row: e.first_row,
-        };
-        view.validate().map_err(|why| format!("block {i} {why}"))?;
+        let view = e.view(map, i, true)?;
         values.clear();
         values.resize(view.rows, 0.0);
         for kind in [Kind::Label, Kind::Weight, Kind::Holdout] {
